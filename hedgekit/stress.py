@@ -1,0 +1,518 @@
+"""Stress scenarios and historical replay of the book before and after the overlay.
+
+A scenario is a surprise ``s`` in natural units (term spread +100 bp: ``s_term = 0.01``;
+market -20 %: ``s_mkt = -0.20``).  It maps to orthogonal factor shocks ``g = M s`` through
+the lower-triangular transform ``M`` of the state VAR (methods.md section 1), and the
+book's P&L in return units is ``b' g`` (times NAV for currency).  The market factor's shock
+is the market surprise itself because the first row of ``M`` is ``[1, 0, ..., 0]``.
+
+Two readings of a scenario (methods.md section 1):
+
+* ``"isolated"``: the raw surprises of the variables not named are zero, ``g = M s``;
+* ``"comove"``: they sit at their conditional mean given the named ones,
+  ``s~ = Sigma_{.J} Sigma_{JJ}^{-1} s_J`` (the multivariate-normal conditional mean, a
+  textbook result; Hamilton 1994, *Time Series Analysis*, ch. 4, from memory), and
+  ``g = M s~``.
+
+Intervals come from the betas' standard errors only, assuming the estimates are
+independent across factors and between book and overlay (an approximation; the
+shocks ``g`` are taken as given):
+``se(b'g) = sqrt(sum_f g_f^2 (se_book_f^2 + se_overlay_f^2))``.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from hedgekit.errors import InputError
+
+READINGS = ("isolated", "comove")
+
+#: Built-in scenarios in natural units (decimals).  Sizes are round, familiar stress moves
+#: (common practice, no single source).  ``sample_recession`` is sized from the user's own
+#: sample in :func:`run_stress`.
+BUILTIN_SCENARIOS: dict[str, dict[str, Any]] = {
+    "curve_steepens_100bp": {
+        "shocks": {"term": 0.01},
+        "description": "term spread +100 bp",
+    },
+    "credit_spreads_widen_150bp": {
+        "shocks": {"def": 0.015},
+        "description": "default spread +150 bp",
+    },
+    "policy_rate_cut_100bp": {
+        "shocks": {"rf": -0.01},
+        "description": "short rate -100 bp",
+    },
+    "yield_jump_1pt": {
+        "shocks": {"dy": 0.01},
+        "description": "dividend yield +1 point",
+    },
+    "equity_drawdown_20pct": {
+        "shocks": {"mkt": -0.20},
+        "description": "market excess return -20 %",
+    },
+    "sample_recession": {
+        "shocks": None,
+        "description": "average raw innovations over the book's worst months of the sample",
+    },
+}
+
+# Built-in scenarios use the conventional variable names; when the market column is named
+# otherwise its shock goes to the first variable (the market by construction).  Built-ins
+# naming a variable the VAR lacks are skipped with a warning.
+_MARKET_KEY = "mkt"
+
+
+def _jsonable(x: Any) -> Any:
+    """Plain python for JSON: NaN -> None, numpy scalars -> python numbers."""
+    if isinstance(x, dict):
+        return {str(k): _jsonable(v) for k, v in x.items()}
+    if isinstance(x, list | tuple):
+        return [_jsonable(v) for v in x]
+    if isinstance(x, np.integer):
+        return int(x)
+    if isinstance(x, float | np.floating):
+        x = float(x)
+        return None if math.isnan(x) else x
+    if isinstance(x, pd.Period):
+        return str(x)
+    return x
+
+
+def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
+    out = frame.copy()
+    for col in out.columns:
+        if isinstance(out[col].dtype, pd.PeriodDtype):
+            out[col] = out[col].astype(str)
+    return [_jsonable(r) for r in out.to_dict(orient="records")]
+
+
+@dataclass(frozen=True)
+class StressResult:
+    """Scenario P&L before and after the overlay, and the historical replay.
+
+    ``table`` has one row per scenario and reading: the P&L of the unhedged and hedged
+    book in return units with its standard error and interval, and in currency (× NAV).
+    ``shocks`` (rows as ``table``) are the orthogonal factor shocks ``g``, ``surprises``
+    the raw natural-unit surprises after the reading is applied, and
+    ``contributions_unhedged`` / ``contributions_hedged`` the per-factor terms ``b_f g_f``.
+    ``replay_months`` / ``replay_quarters`` list the worst months and quarters of the
+    sample, by factor contribution and by the book's state-driven P&L.
+    """
+
+    factors: tuple[str, ...]
+    nav: float
+    confidence: float
+    table: pd.DataFrame
+    shocks: pd.DataFrame
+    surprises: pd.DataFrame
+    contributions_unhedged: pd.DataFrame
+    contributions_hedged: pd.DataFrame
+    replay_months: pd.DataFrame | None
+    replay_quarters: pd.DataFrame | None
+    recession: dict[str, Any] | None
+    book_betas: pd.Series
+    hedged_betas: pd.Series
+    warnings: tuple[str, ...] = field(default_factory=tuple)
+
+    def to_frame(self) -> pd.DataFrame:
+        """The scenario table (one row per scenario and reading)."""
+        return self.table.copy()
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dict: ``scenarios`` list plus ``replay`` and ``recession``."""
+        rows = []
+        for i, r in enumerate(self.table.itertuples(index=False)):
+            rows.append({
+                "name": r.scenario,
+                "reading": r.reading,
+                "description": r.description,
+                "surprise": self.surprises.iloc[i].to_dict(),
+                "shocks": self.shocks.iloc[i].to_dict(),
+                "contributions": {
+                    "unhedged": self.contributions_unhedged.iloc[i].to_dict(),
+                    "hedged": self.contributions_hedged.iloc[i].to_dict(),
+                },
+                "pnl": {
+                    side: {
+                        "return": getattr(r, f"{side}"),
+                        "se": getattr(r, f"{side}_se"),
+                        "lo": getattr(r, f"{side}_lo"),
+                        "hi": getattr(r, f"{side}_hi"),
+                        "currency": getattr(r, f"{side}_ccy"),
+                        "currency_lo": getattr(r, f"{side}_ccy_lo"),
+                        "currency_hi": getattr(r, f"{side}_ccy_hi"),
+                    }
+                    for side in ("unhedged", "hedged")
+                },
+            })
+        return _jsonable({
+            "factors": list(self.factors),
+            "nav": self.nav,
+            "confidence": self.confidence,
+            "book_betas": self.book_betas.to_dict(),
+            "hedged_betas": self.hedged_betas.to_dict(),
+            "scenarios": rows,
+            "replay": {
+                "months": [] if self.replay_months is None else _records(self.replay_months),
+                "quarters": [] if self.replay_quarters is None else _records(self.replay_quarters),
+            },
+            "recession": self.recession,
+            "warnings": list(self.warnings),
+        })
+
+
+def _nearest(name: str, valid: Sequence[str]) -> str:
+    close = difflib.get_close_matches(name, list(valid), n=1)
+    return f"'{close[0]}'" if close else "one of " + ", ".join(f"'{v}'" for v in valid)
+
+
+def _check_inputs(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataFrame,
+                  market: str) -> list[str]:
+    variables = [str(v) for v in transform.index]
+    if list(map(str, transform.columns)) != variables:
+        raise InputError("the transform M must be square with the same variables as rows and "
+                         "columns, in orthogonalisation order.", column=None,
+                         fix="pass StateResult.transform unchanged.")
+    if sorted(map(str, sigma_u.index)) != sorted(variables) or sorted(
+            map(str, sigma_u.columns)) != sorted(variables):
+        raise InputError("sigma_u must cover the same variables as the transform.",
+                         fix="pass StateResult.sigma_u unchanged.")
+    if variables[0] != market:
+        raise InputError(f"the market variable '{market}' must come first in the "
+                         f"orthogonalisation order, found '{variables[0]}' first.",
+                         column=market, fix="put the market column first in [states] order.")
+    missing = [v for v in variables if v not in book_betas.index]
+    if missing:
+        raise InputError(f"book betas lack the factors {missing}.", column=missing[0],
+                         fix="estimate the book's exposure on the factors of the state VAR.")
+    m = transform.to_numpy(dtype=float)
+    if not np.all(np.isfinite(m)) or not np.allclose(np.triu(m, 1), 0.0, atol=1e-12):
+        raise InputError("the transform M must be finite and lower triangular.",
+                         fix="pass StateResult.transform unchanged.")
+    return variables
+
+
+def _aligned(series: pd.Series | None, variables: list[str], name: str) -> np.ndarray:
+    if series is None:
+        return np.zeros(len(variables))
+    extra = [v for v in variables if v not in series.index]
+    if extra:
+        raise InputError(f"{name} lacks the factors {extra}.", column=extra[0],
+                         fix=f"give {name} on every factor of the state VAR.")
+    out = series.reindex(variables).to_numpy(dtype=float)
+    return np.where(np.isfinite(out), out, 0.0) if name.endswith("_se") else out
+
+
+def overlay_exposure(positions: pd.Series, instrument_betas: pd.DataFrame,
+                     instrument_se: pd.DataFrame | None = None) -> tuple[pd.Series, pd.Series]:
+    """The overlay's factor exposure ``B_H h`` and its standard error.
+
+    ``instrument_betas`` is instrument × factor.  Under independence across instruments'
+    estimates, ``se_f = sqrt(sum_j h_j^2 se_jf^2)`` (common practice approximation).
+    """
+    h = positions.reindex(instrument_betas.index).fillna(0.0).to_numpy(dtype=float)
+    betas = pd.Series(h @ instrument_betas.to_numpy(dtype=float), index=instrument_betas.columns)
+    if instrument_se is None:
+        se = pd.Series(0.0, index=instrument_betas.columns)
+    else:
+        s = instrument_se.reindex(index=instrument_betas.index,
+                                  columns=instrument_betas.columns).fillna(0.0)
+        se = pd.Series(np.sqrt((h ** 2) @ (s.to_numpy(dtype=float) ** 2)),
+                       index=instrument_betas.columns)
+    return betas, se
+
+
+def scenario_shocks(transform: pd.DataFrame, sigma_u: pd.DataFrame,
+                    surprises: pd.DataFrame, readings: Sequence[str]) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Map natural-unit surprises (rows: scenarios) to orthogonal shocks, all at once.
+
+    Returns ``(filled, shocks)``: the raw surprise vector after the reading (NaN = not
+    named) and ``g = M s``.  ``"comove"`` fills the unnamed raw surprises with
+    ``Sigma_{.J} Sigma_{JJ}^{-1} s_J`` (multivariate-normal conditional mean).
+    """
+    variables = list(transform.index)
+    sig = sigma_u.reindex(index=variables, columns=variables).to_numpy(dtype=float)
+    s = surprises.reindex(columns=variables).to_numpy(dtype=float)
+    named = np.isfinite(s)
+    filled = np.where(named, s, 0.0)
+    for i, reading in enumerate(readings):  # loop over scenarios (a handful), not months
+        if reading == "comove":
+            j = named[i]
+            if j.any() and not j.all():
+                coef = np.linalg.solve(sig[np.ix_(j, j)], s[i, j])
+                filled[i] = sig[:, j] @ coef
+    shocks = filled @ transform.to_numpy(dtype=float).T
+    return (pd.DataFrame(filled, index=surprises.index, columns=variables),
+            pd.DataFrame(shocks, index=surprises.index, columns=variables))
+
+
+def _recession_surprise(raw: pd.DataFrame, book: np.ndarray, m: np.ndarray,
+                        quantile: float) -> tuple[pd.Series, dict[str, Any]]:
+    """Mean raw innovation over the months where the book's state P&L ``b'M u_t`` is worst."""
+    clean = raw.dropna()
+    if clean.empty:
+        raise InputError("raw innovations are all missing; the sample recession cannot be sized.",
+                         fix="pass StateResult.raw.")
+    pnl = clean.to_numpy(dtype=float) @ m.T @ book
+    n = max(1, math.ceil(quantile * len(pnl)))
+    worst = np.argsort(pnl, kind="stable")[:n]
+    surprise = clean.iloc[worst].mean()
+    info = {
+        "quantile": quantile,
+        "n_months": int(n),
+        "dates": [str(d) for d in clean.index[np.sort(worst)]],
+        "surprise": surprise.to_dict(),
+        "threshold_pnl": float(pnl[worst].max()),
+    }
+    return surprise, info
+
+
+def _parse_scenarios(scenarios: Sequence[Mapping[str, Any]] | None, variables: list[str],
+                     include_builtin: bool, warnings: list[str]) -> list[tuple[str, str, str, dict]]:
+    """Expand scenarios into (name, reading, description, shocks) rows."""
+    rows: list[tuple[str, str, str, dict]] = []
+    if include_builtin:
+        for name, spec in BUILTIN_SCENARIOS.items():
+            if spec["shocks"] is None:
+                continue
+            shocks = dict(spec["shocks"])
+            if _MARKET_KEY in shocks and _MARKET_KEY not in variables:
+                shocks[variables[0]] = shocks.pop(_MARKET_KEY)
+            unknown = [k for k in shocks if k not in variables]
+            if unknown:
+                warnings.append(f"built-in scenario '{name}' skipped: no state variable "
+                                f"named {unknown[0]!r}.")
+                continue
+            rows += [(name, r, spec["description"], shocks) for r in READINGS]
+    for k, sc in enumerate(scenarios or []):
+        where = f"scenario {k + 1}"
+        if not isinstance(sc, Mapping) or "shocks" not in sc:
+            raise InputError("a scenario needs a name and a 'shocks' table.", row=where,
+                             fix="write it as {name = \"...\", shocks = {term = 0.01}}.")
+        name = str(sc.get("name", f"scenario_{k + 1}"))
+        shocks = sc["shocks"]
+        if not isinstance(shocks, Mapping) or not shocks:
+            raise InputError(f"scenario '{name}' has no shocks.", row=where,
+                             fix="give at least one variable and its surprise, e.g. term = 0.01.")
+        clean = {}
+        for var, x in shocks.items():
+            if var not in variables:
+                raise InputError(f"scenario '{name}' shocks an unknown variable '{var}'.",
+                                 row=where, column=str(var),
+                                 fix=f"did you mean {_nearest(str(var), variables)}?")
+            try:
+                val = float(x)
+            except (TypeError, ValueError):
+                raise InputError(f"scenario '{name}': the surprise of '{var}' is not a number "
+                                 f"({x!r}).", row=where, column=str(var),
+                                 fix="give decimals: +100 bp is 0.01, -20 % is -0.20.") from None
+            if not math.isfinite(val):
+                raise InputError(f"scenario '{name}': the surprise of '{var}' is not finite.",
+                                 row=where, column=str(var), fix="give a finite decimal.")
+            clean[str(var)] = val
+        reading = str(sc.get("reading", "both"))
+        if reading in ("co-move", "co_move", "typical"):
+            reading = "comove"
+        if reading not in (*READINGS, "both"):
+            raise InputError(f"scenario '{name}' has an unknown reading '{reading}'.",
+                             row=where, column="reading",
+                             fix=f"use {_nearest(reading, [*READINGS, 'both'])}.")
+        desc = str(sc.get("description", ", ".join(f"{v} {x:+g}" for v, x in clean.items())))
+        for r in (READINGS if reading == "both" else (reading,)):
+            rows.append((name, r, desc, clean))
+    return rows
+
+
+def _worst_periods(pnl: pd.DataFrame, hedged: pd.DataFrame, values: pd.DataFrame,
+                   model_unhedged: pd.Series, model_hedged: pd.Series,
+                   realised: pd.Series | None, k: int) -> pd.DataFrame:
+    """The k most negative periods of each column of ``pnl`` (book contributions)."""
+    out = []
+    for col in pnl.columns:  # loop over factors and the total, not over months
+        ranked = pnl[col].dropna().sort_values(kind="stable").iloc[:k]
+        idx = ranked.index
+        out.append(pd.DataFrame({
+            "ranked_by": col,
+            "rank": np.arange(1, len(idx) + 1),
+            "date": idx,
+            "innovation": values[col].reindex(idx).to_numpy() if col in values else np.nan,
+            "contribution_unhedged": ranked.to_numpy(),
+            "contribution_hedged": hedged[col].reindex(idx).to_numpy(),
+            "model_unhedged": model_unhedged.reindex(idx).to_numpy(),
+            "model_hedged": model_hedged.reindex(idx).to_numpy(),
+            "realised": (realised.reindex(idx).to_numpy() if realised is not None
+                         else np.full(len(idx), np.nan)),
+        }))
+    return pd.concat(out, ignore_index=True)
+
+
+def historical_replay(factors: pd.DataFrame, book_betas: pd.Series, hedged_betas: pd.Series, *,
+                      book_returns: pd.Series | None = None, worst_k: int = 5,
+                      nav: float = 1.0) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Worst months and calendar quarters of the sample, replayed through the betas.
+
+    Model (state-driven) P&L of a month is ``b' f_t`` (factors as estimated, market return
+    first); a factor's contribution is ``b_f f_{f,t}``.  For each factor the ``worst_k``
+    periods with the most negative contribution, and for ``"book"`` those with the most
+    negative model P&L, are listed with the hedged model P&L ``(b + B_H h)' f_t`` and the
+    realised book return.  Quarters sum the monthly values of complete calendar quarters
+    (the sum of simple returns, a common practice approximation to compounding).
+    Currency columns are ``× nav``.
+    """
+    cols = list(factors.columns)
+    b = book_betas.reindex(cols).to_numpy(dtype=float)
+    bh = hedged_betas.reindex(cols).to_numpy(dtype=float)
+    f = factors.astype(float)
+    contrib = f * b
+    contrib_h = f * bh
+    model = pd.Series(f.to_numpy() @ b, index=f.index).where(f.notna().all(axis=1))
+    model_h = pd.Series(f.to_numpy() @ bh, index=f.index).where(f.notna().all(axis=1))
+    realised = None if book_returns is None else book_returns.reindex(f.index).astype(float)
+
+    def table(c, ch, v, mu, mh, rr):
+        c = c.assign(book=mu)
+        ch = ch.assign(book=mh)
+        out = _worst_periods(c, ch, v, mu, mh, rr, worst_k)
+        for col in ("contribution_unhedged", "contribution_hedged", "model_unhedged",
+                    "model_hedged", "realised"):
+            out[f"{col}_ccy"] = out[col] * nav
+        return out
+
+    months = table(contrib, contrib_h, f, model, model_h, realised)
+
+    if not isinstance(f.index, pd.PeriodIndex) or f.index.freqstr not in ("M",):
+        return months, months.iloc[0:0].copy()
+    q = f.index.asfreq("Q")
+    full = pd.Series(1, index=f.index).where(f.notna().all(axis=1)).groupby(q).count() == 3
+
+    def qsum(x):
+        s = x.groupby(q).sum(min_count=1)
+        return s[full.reindex(s.index, fill_value=False).to_numpy()]
+
+    rq = None
+    if realised is not None:
+        rq = realised.groupby(q).sum(min_count=3)
+        rq = rq[full.reindex(rq.index, fill_value=False).to_numpy()]
+    fq = qsum(f)
+    quarters = table(qsum(contrib), qsum(contrib_h), fq, qsum(model), qsum(model_h), rq)
+    return months, quarters
+
+
+def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataFrame, *,
+               nav: float, market: str | None = None, overlay_betas: pd.Series | None = None,
+               scenarios: Sequence[Mapping[str, Any]] | None = None,
+               include_builtin: bool = True, book_se: pd.Series | None = None,
+               overlay_se: pd.Series | None = None, raw_innovations: pd.DataFrame | None = None,
+               factors: pd.DataFrame | None = None, book_returns: pd.Series | None = None,
+               worst_k: int = 5, recession_quantile: float = 0.05,
+               confidence: float = 0.95) -> StressResult:
+    """Scenario P&L ``b' M s`` of the book before and after the overlay.
+
+    ``book_betas`` and ``overlay_betas`` (``B_H h``) are indexed by factor (the state
+    variables, market first); the hedged book's betas are their sum.  ``transform`` is
+    ``M`` and ``sigma_u`` the raw innovation covariance of the state VAR.  ``scenarios``
+    are dicts ``{name, shocks: {var: x}, reading}`` with ``reading`` in ``"isolated"``,
+    ``"comove"`` or ``"both"`` (default).  With ``raw_innovations`` the built-in
+    ``sample_recession`` is the mean raw innovation over the ``recession_quantile`` worst
+    months of ``b' M u_t``.  With ``factors`` (and optionally ``book_returns``) the worst
+    ``worst_k`` months and quarters are replayed.  Intervals at ``confidence`` use the
+    normal quantile and independent beta errors (see the module docstring).
+    """
+    if not (isinstance(nav, int | float) and math.isfinite(nav) and nav > 0):
+        raise InputError(f"NAV must be a positive number, got {nav!r}.", column="nav",
+                         fix="set [portfolio] nav to the book's value in currency units.")
+    if not 0 < confidence < 1:
+        raise InputError(f"confidence must lie in (0, 1), got {confidence}.",
+                         column="confidence", fix="use for example 0.95.")
+    if not 0 < recession_quantile < 1:
+        raise InputError(f"recession_quantile must lie in (0, 1), got {recession_quantile}.",
+                         column="recession_quantile", fix="use for example 0.05.")
+    if worst_k < 1:
+        raise InputError(f"worst_k must be at least 1, got {worst_k}.", column="worst_k",
+                         fix="use for example 5.")
+    market = market if market is not None else str(transform.index[0])
+    variables = _check_inputs(book_betas, transform, sigma_u, market)
+    warnings: list[str] = []
+    b = _aligned(book_betas, variables, "book_betas")
+    o = _aligned(overlay_betas, variables, "overlay_betas")
+    se_b = _aligned(book_se, variables, "book_se")
+    se_o = _aligned(overlay_se, variables, "overlay_se")
+    if not np.all(np.isfinite(b)) or not np.all(np.isfinite(o)):
+        raise InputError("book or overlay betas contain missing values.",
+                         fix="estimate every factor's beta before the stress step.")
+    if book_se is None:
+        warnings.append("no standard errors for the book's betas: intervals cover the overlay's "
+                        "estimation error only.")
+    m = transform.to_numpy(dtype=float)
+    if not np.isclose(m[0, 0], 1.0) or not np.allclose(m[0, 1:], 0.0):
+        warnings.append("the first row of M is not [1, 0, ...]: the market factor's shock is "
+                        "not the market surprise itself.")
+
+    rows = _parse_scenarios(scenarios, variables, include_builtin, warnings)
+    recession = None
+    if include_builtin and raw_innovations is not None:
+        raw = raw_innovations.reindex(columns=variables)
+        surprise, recession = _recession_surprise(raw, b, m, recession_quantile)
+        rows.append(("sample_recession", "isolated",
+                     BUILTIN_SCENARIOS["sample_recession"]["description"]
+                     + f" ({recession['n_months']} months, worst {recession_quantile:.0%})",
+                     surprise.to_dict()))
+    elif include_builtin:
+        warnings.append("no raw innovations given: the sample_recession scenario is left out.")
+    if not rows:
+        raise InputError("no scenarios to run.", fix="keep the built-in set or add scenarios.")
+
+    spec = pd.DataFrame([r[3] for r in rows], columns=variables, dtype=float)
+    readings = [r[1] for r in rows]
+    filled, shocks = scenario_shocks(transform, sigma_u, spec, readings)
+    g = shocks.to_numpy()
+    bh = b + o
+    z = float(stats.norm.ppf(0.5 + confidence / 2))
+    pnl_u = g @ b
+    pnl_h = g @ bh
+    se_u = np.sqrt((g ** 2) @ (se_b ** 2))
+    se_h = np.sqrt((g ** 2) @ (se_b ** 2 + se_o ** 2))
+    table = pd.DataFrame({
+        "scenario": [r[0] for r in rows],
+        "reading": readings,
+        "description": [r[2] for r in rows],
+    })
+    for side, p, s in (("unhedged", pnl_u, se_u), ("hedged", pnl_h, se_h)):
+        table[side] = p
+        table[f"{side}_se"] = s
+        table[f"{side}_lo"] = p - z * s
+        table[f"{side}_hi"] = p + z * s
+        table[f"{side}_ccy"] = p * nav
+        table[f"{side}_ccy_lo"] = (p - z * s) * nav
+        table[f"{side}_ccy_hi"] = (p + z * s) * nav
+    table["hedge_saves_ccy"] = (pnl_h - pnl_u) * nav
+
+    book_s = pd.Series(b, index=variables, name="book")
+    hedged_s = pd.Series(bh, index=variables, name="hedged")
+    replay_m = replay_q = None
+    if factors is not None:
+        missing = [v for v in variables if v not in factors.columns]
+        if missing:
+            raise InputError(f"the factor frame lacks {missing}.", column=missing[0],
+                             fix="pass StateResult.factors(market_data).")
+        replay_m, replay_q = historical_replay(factors[variables], book_s, hedged_s,
+                                               book_returns=book_returns, worst_k=worst_k,
+                                               nav=float(nav))
+    return StressResult(
+        factors=tuple(variables), nav=float(nav), confidence=float(confidence), table=table,
+        shocks=shocks.set_axis(table.index), surprises=filled.set_axis(table.index),
+        contributions_unhedged=(shocks * b).set_axis(table.index),
+        contributions_hedged=(shocks * bh).set_axis(table.index),
+        replay_months=replay_m, replay_quarters=replay_q, recession=recession,
+        book_betas=book_s, hedged_betas=hedged_s, warnings=tuple(warnings),
+    )
