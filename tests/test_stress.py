@@ -224,3 +224,18 @@ def test_user_scenario_both_readings_and_frame():
     assert list(frame["reading"]) == ["isolated", "comove"]
     assert (frame["scenario"] == "bear_steepener").all()
     assert not any("sample_recession" in w for w in res.warnings)
+
+
+def test_agrees_with_states_surprise_map():
+    """Scenario shocks agree with hedgekit.states.surprise_to_shocks, a separate
+    implementation of methods.md section 1 (isolated and co-move readings)."""
+    from hedgekit.states import surprise_to_shocks
+
+    scen = [{"name": "a", "shocks": {"term": 0.01, "rf": -0.005}},
+            {"name": "b", "shocks": {"def": 0.015}}]
+    res = run_stress(BOOK, M, SIGMA, nav=NAV, scenarios=scen, include_builtin=False)
+    for i, row in res.table.iterrows():
+        sc = next(s for s in scen if s["name"] == row["scenario"])
+        other = surprise_to_shocks(M, SIGMA, sc["shocks"], reading=row["reading"])
+        np.testing.assert_allclose(res.shocks.loc[i].to_numpy(), other.loc[V].to_numpy(),
+                                   rtol=1e-10, atol=1e-14)
