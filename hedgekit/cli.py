@@ -1,0 +1,118 @@
+"""Command line: ``hedgekit COMMAND CONFIG [options]``.
+
+Only wiring lives here: parse arguments, call :mod:`hedgekit.pipeline`, print with
+:mod:`hedgekit.display`, map errors to exit codes (0 done, 1 other, 2 bad input,
+3 hedge targets unreachable). ``--json`` prints one JSON object on stdout and nothing
+else there; notes go to stderr.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+import traceback
+from pathlib import Path
+from typing import Any
+
+from . import __version__
+from .errors import HedgekitError, InputError
+
+COMMANDS = {
+    "demo": "the whole job on the bundled invented scenario (no CONFIG needed)",
+    "run": "the whole job: states, exposures, premia, hedge, stress, report",
+    "states": "VAR of the state vector, raw and orthogonal innovations",
+    "exposures": "full-sample and rolling betas of assets, book and instruments",
+    "premia": "Fama-MacBeth prices of risk",
+    "hedge": "the overlay and its ticket",
+    "stress": "scenario P&L before and after the hedge",
+    "backtest": "the walk-forward check of the hedge",
+    "report": "the quarterly exposure report (HTML and Markdown)",
+    "history": "earlier runs from the run store, side by side",
+    "validate": "read and check every input file the config names, print a summary",
+}
+
+EPILOG = ("Exit codes: 0 done, 1 other failure, 2 bad input or configuration, "
+          "3 hedge targets not reachable.\nOutput is decision support, not investment advice.")
+
+
+def _jsonable(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, float) and (math.isnan(obj) or math.isinf(obj)):
+        return None
+    if hasattr(obj, "item") and callable(obj.item):  # numpy scalars
+        return _jsonable(obj.item())
+    if isinstance(obj, Path):
+        return str(obj)
+    return obj
+
+
+def build_parser() -> argparse.ArgumentParser:
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--json", action="store_true", help="print one JSON object on stdout")
+    common.add_argument("--debug", action="store_true", help="show the traceback on errors")
+    common.add_argument("--out", metavar="DIR", help="also write this command's tables as CSV into DIR")
+    parser = argparse.ArgumentParser(
+        prog="hedgekit",
+        description="Exposures of a book to state-variable innovations, their prices of risk, "
+                    "and the overlay that neutralises the ones you choose.",
+        epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--version", action="version", version=f"hedgekit {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, text in COMMANDS.items():
+        p = sub.add_parser(name, parents=[common], help=text, description=text, epilog=EPILOG)
+        if name == "demo":
+            p.add_argument("--dir", default="hedgekit_demo",
+                           help="folder the demo scenario and its outputs are written to (default: %(default)s)")
+        else:
+            p.add_argument("config", metavar="CONFIG", help="the book's TOML configuration file")
+        if name in ("demo", "run", "hedge", "stress", "report"):
+            p.add_argument("--closest", action="store_true",
+                           help="when targets are unreachable, return the closest reachable overlay")
+        if name in ("demo", "run", "report"):
+            p.add_argument("--backtest", action="store_true", help="include the walk-forward check")
+            p.add_argument("--no-store", action="store_true", help="do not record the run in the run store")
+        if name == "backtest":
+            p.add_argument("--rebalance", choices=["quarterly", "monthly"], help="override [backtest] rebalance")
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not args.command:
+        parser.print_help()
+        return 0
+    try:
+        from . import commands
+        payload, code = commands.dispatch(args)
+        if args.json:
+            sys.stdout.write(json.dumps(_jsonable(payload), indent=None, allow_nan=False) + "\n")
+        return code
+    except HedgekitError as exc:
+        if args.debug:
+            traceback.print_exc()
+        kind = "bad input" if isinstance(exc, InputError) else "error"
+        print(f"hedgekit: {kind}: {exc}", file=sys.stderr)
+        if args.json:
+            sys.stdout.write(json.dumps({"error": str(exc), "exit_code": exc.exit_code}) + "\n")
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("hedgekit: interrupted", file=sys.stderr)
+        return 1
+    except Exception as exc:  # noqa: BLE001 - the shell turns any failure into exit 1
+        if args.debug:
+            traceback.print_exc()
+        print(f"hedgekit: internal error: {type(exc).__name__}: {exc}. Rerun with --debug for the traceback.",
+              file=sys.stderr)
+        if args.json:
+            sys.stdout.write(json.dumps({"error": f"{type(exc).__name__}: {exc}", "exit_code": 1}) + "\n")
+        return 1
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
