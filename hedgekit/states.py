@@ -221,8 +221,9 @@ def _chol_transform(cov: np.ndarray, variables) -> np.ndarray:
             f"singular innovation covariance: the innovation of '{variables[j]}' is a linear "
             f"combination of those of {', '.join(variables[:j]) or 'none'}.",
             column=str(variables[j]), fix="drop the redundant state variable.")
-    m = solve_triangular(chol, np.eye(k), lower=True) * chol[0, 0]
-    return np.tril(m)
+    m = np.tril(solve_triangular(chol, np.eye(k), lower=True) * chol[0, 0])
+    m[0, 0] = 1.0      # exactly: the first innovation stays as it is
+    return m
 
 
 def _frame(values: np.ndarray, index, columns) -> pd.DataFrame:
@@ -561,6 +562,12 @@ def estimate_states(data: pd.DataFrame, *, lags: int | str = 1, max_lags: int = 
     se = np.sqrt(np.outer(np.diag(xtx_inv), np.diag(sigma)))   # (1+Kp) × K
     yc = y - y.mean(axis=0)
     r2 = 1.0 - np.diag(sse) / np.einsum("ij,ij->j", yc, yc)
+    exact = [v for v, r in zip(variables, r2, strict=True) if 1.0 - r <= _RANK_TOL]
+    if exact:
+        raise InputError(
+            f"singular innovation covariance: the innovation of '{exact[0]}' is zero (it is an "
+            "exact function of the lagged states, R² = 1).",
+            column=exact[0], fix="drop the redundant state variable.")
     moduli = _companion_moduli(b[1:].T, k, p)
     top = float(moduli[0])
     stable = bool(top < 1.0)
@@ -744,6 +751,7 @@ def realtime_innovations(data: pd.DataFrame, *, lags: int | str = 1, min_window:
     eye = np.broadcast_to(np.eye(k), chol.shape)
     linv = np.linalg.solve(chol, eye)
     mpath = np.tril(linv * chol[:, :1, :1])
+    mpath[:, 0, 0] = 1.0
     # Forecast of row τ+1 from the fit through τ.
     tgt = fit[:-1] + 1
     err = y[tgt] - np.einsum("ti,tij->tj", x[tgt], b[:-1])
