@@ -387,7 +387,7 @@ class OverlayProblem:
         h = np.asarray(h1.value, dtype=float)
         if second_stage:
             total = float(s_n.sum() + s_k.sum())
-            self.params["smax"].value = total * (1 + 1e-6) + 1e-9
+            self.params["smax"].value = total * (1 + 1e-8) + 1e-10
             outcome2, solver2 = self._run(second)
             if outcome2 == "optimal":
                 h, solver = np.asarray(h2.value, dtype=float), solver2
@@ -936,7 +936,7 @@ def _ticket(*, status: str, instruments: list[str], act: np.ndarray, h_act: np.n
     """Round to contracts and compute exposures, risk, premium and cost of the overlay."""
     h = np.zeros(len(instruments))
     h[act] = h_act
-    h[np.abs(h) < 1e-11] = 0.0              # solver dust, not a position
+    h[np.abs(h) < 1e-8] = 0.0               # solver dust (1e-8 of NAV), not a position
     notional = h * nav
     contracts = np.rint(notional / unit).astype(np.int64)
     h_round = contracts * unit / nav
