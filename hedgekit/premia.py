@@ -1,0 +1,397 @@
+"""Prices of risk: Fama-MacBeth cross-sections with Newey-West and Shanken errors.
+
+For each month t, R_{.,t} = X_t gamma_t + alpha_t across assets, X_t = [1, beta] (option:
+no intercept); lambda = mean_t gamma_t (Fama and MacBeth 1973, JPE; Cochrane 2005,
+*Asset Pricing*, rev. ed., ch. 12).  Months with fewer than K+2 usable assets or a rank
+deficient design are skipped and counted.
+
+* Plain Fama-MacBeth: Var(lambda) = S/T, S the sample covariance (divisor T-1) of the
+  gamma_t.  Newey-West: (Gamma_0 + sum_l (1 - l/(L+1))(Gamma_l + Gamma_l'))/(T(T-1)) on
+  the deviations gamma_t - lambda, equal to S/T at L = 0 (the same scaling as
+  linearmodels' ``FamaMacBeth`` kernel covariance with ``debiased=True``).
+* Shanken 1992 (RFS), Cochrane 2005 eq. 12.19, with full-sample betas:
+  Var(lambda) = [(X'X)^{-1} X' Sigma X (X'X)^{-1} (1 + c) + Sigma~_f] / T,
+  c = lambda_f' Sigma_f^{-1} lambda_f, Sigma~_f = blockdiag(0, Sigma_f).  Sigma is the
+  residual covariance of the time-series regressions, pairwise on common months with
+  divisor n_ij; Sigma_f the factor covariance with divisor T (both maximum likelihood, as
+  in Shanken 1992), over the months used.  With rolling betas the multiplier form
+  (1 + c)(V_FM - Sigma~_f/T) + Sigma~_f/T, labelled approximate.
+* Cross-sectional R² = 1 - var(alpha-bar)/var(R-bar) (Jagannathan and Wang 1996, JF);
+  pricing-error test alpha-bar' cov(alpha-bar)^+ alpha-bar ~ chi²(N - K - 1) with
+  cov(alpha-bar) = sum_t (alpha_t - alpha-bar)(alpha_t - alpha-bar)' / T² (pairwise
+  n_i n_j with missing returns), plain and divided by (1 + c).
+* GRS (Gibbons, Ross and Shanken 1989, Econometrica) when every factor is traded:
+  (T/N)((T-N-K)/(T-K-1)) alpha' Sigma^{-1} alpha / (1 + mu' Omega^{-1} mu) ~ F(N, T-N-K),
+  Sigma with divisor T-K-1 and Omega with divisor T (this equals Cochrane 2005 eq. 12.6
+  written with maximum-likelihood Sigma), on the months where every asset is observed.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from hedgekit.errors import InputError
+from hedgekit.exposures import (
+    RollingBetas,
+    _as_frame,
+    _clean,
+    _frame_dict,
+    _resolve_lags,
+    _series_dict,
+)
+
+__all__ = ["PremiaResult", "book_premium", "fama_macbeth"]
+
+CONST = "const"
+
+
+@dataclass(frozen=True)
+class PremiaResult:
+    """Fama-MacBeth prices of risk (monthly, per unit of factor) and their tests."""
+
+    factors: tuple[str, ...]
+    lambda_: pd.Series
+    se_fm: pd.Series
+    se_nw: pd.Series
+    se_shanken: pd.Series
+    t_fm: pd.Series
+    t_nw: pd.Series
+    t_shanken: pd.Series
+    shanken_approximate: bool
+    r2_cs: float
+    n_periods: int
+    n_skipped: int
+    gamma: pd.DataFrame = field(repr=False)
+    pricing_errors: pd.Series = field(repr=False)
+    pricing_error_test: dict = field(default_factory=dict)
+    pricing_error_test_shanken: dict = field(default_factory=dict)
+    grs: dict | None = None
+    nw_lags: int = 0
+    betas_used: str = "full"
+    cov_fm: pd.DataFrame | None = field(default=None, repr=False)
+    cov_nw: pd.DataFrame | None = field(default=None, repr=False)
+    cov_shanken: pd.DataFrame | None = field(default=None, repr=False)
+    shanken_c: float = float("nan")
+    n_assets: int = 0
+    intercept: bool = True
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        return {
+            "factors": list(self.factors),
+            "lambda": _series_dict(self.lambda_),
+            "se_fm": _series_dict(self.se_fm),
+            "se_nw": _series_dict(self.se_nw),
+            "se_shanken": _series_dict(self.se_shanken),
+            "t_fm": _series_dict(self.t_fm),
+            "t_nw": _series_dict(self.t_nw),
+            "t_shanken": _series_dict(self.t_shanken),
+            "shanken_approximate": bool(self.shanken_approximate),
+            "shanken_c": _clean(self.shanken_c),
+            "r2_cs": _clean(self.r2_cs),
+            "n_periods": int(self.n_periods),
+            "n_skipped": int(self.n_skipped),
+            "n_assets": int(self.n_assets),
+            "pricing_errors": _series_dict(self.pricing_errors),
+            "pricing_error_test": _clean(self.pricing_error_test),
+            "pricing_error_test_shanken": _clean(self.pricing_error_test_shanken),
+            "grs": _clean(self.grs) if self.grs is not None else None,
+            "nw_lags": int(self.nw_lags),
+            "betas_used": self.betas_used,
+            "intercept": bool(self.intercept),
+            "cov_shanken": _frame_dict(self.cov_shanken),
+            "warnings": list(self.warnings),
+        }
+
+    def to_frame(self) -> pd.DataFrame:
+        """factor x [lambda, se_fm, se_nw, se_shanken, t_fm, t_nw, t_shanken]."""
+        out = pd.DataFrame({"lambda": self.lambda_, "se_fm": self.se_fm, "se_nw": self.se_nw,
+                            "se_shanken": self.se_shanken, "t_fm": self.t_fm, "t_nw": self.t_nw,
+                            "t_shanken": self.t_shanken})
+        out.index.name = "factor"
+        return out
+
+
+def _chi2_test(stat: float, df: int) -> dict:
+    p = float(stats.chi2.sf(stat, df)) if df > 0 and np.isfinite(stat) else float("nan")
+    return {"stat": float(stat), "df": int(df), "pvalue": p}
+
+
+def _residual_cov(y: np.ndarray, b: np.ndarray, f: np.ndarray) -> np.ndarray:
+    """Pairwise residual covariance of R_i - a_i - b_i'f with divisor n_ij (ML)."""
+    mask = np.isfinite(y)
+    e = y - f @ b.T
+    n_i = mask.sum(axis=0)
+    e = np.where(mask, e, 0.0)
+    e = np.where(mask, e - e.sum(axis=0) / np.maximum(n_i, 1), 0.0)
+    m = mask.astype(float)
+    n_ij = m.T @ m
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return (e.T @ e) / n_ij
+
+
+def _grs(y: np.ndarray, f: np.ndarray) -> dict | None:
+    """GRS F-test on the months where every asset is observed (Gibbons, Ross and Shanken 1989)."""
+    rows = np.isfinite(y).all(axis=1)
+    y, f = y[rows], f[rows]
+    t, n = y.shape
+    k = f.shape[1]
+    if t - n - k <= 0:
+        return None
+    x = np.column_stack([np.ones(t), f])
+    coef = np.linalg.lstsq(x, y, rcond=None)[0]
+    e = y - x @ coef
+    alpha = coef[0]
+    sigma = e.T @ e / (t - k - 1)
+    mu = f.mean(axis=0)
+    omega = np.atleast_2d(np.cov(f, rowvar=False, ddof=0))
+    quad = float(alpha @ np.linalg.solve(sigma, alpha))
+    sharpe = float(mu @ np.linalg.solve(omega, mu))
+    stat = (t / n) * ((t - n - k) / (t - k - 1)) * quad / (1.0 + sharpe)
+    return {"stat": stat, "df1": int(n), "df2": int(t - n - k),
+            "pvalue": float(stats.f.sf(stat, n, t - n - k)), "n_periods": int(t)}
+
+
+def _full_rank(xtx: np.ndarray) -> np.ndarray:
+    """True where a stack of normal matrices is well conditioned (scaled eigenvalue test)."""
+    d = np.sqrt(np.einsum("tii->ti", xtx))
+    d[~(d > 0)] = 1.0
+    corr = xtx / d[:, :, None] / d[:, None, :]
+    corr = np.where(np.isfinite(corr), corr, 0.0)
+    eig = np.linalg.eigvalsh(corr)
+    return eig[:, 0] > 1e-12 * np.maximum(eig[:, -1], 1e-300)
+
+
+def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
+                 factors: pd.DataFrame | None = None, intercept: bool = True,
+                 nw_lags: int | str = "auto", resid_cov: pd.DataFrame | None = None,
+                 traded: list[str] | tuple[str, ...] | None = None) -> PremiaResult:
+    """Fama-MacBeth prices of risk with plain, Newey-West and Shanken standard errors.
+
+    ``betas``: full-sample betas (assets x factors), or :class:`RollingBetas`, of which
+    month t uses the window ending at t-1 (``lagged()`` is applied unless already done).
+    ``factors`` (dates x factors) is needed for the Shanken correction, the residual
+    covariance (unless ``resid_cov`` is given) and GRS; ``traded`` names the factors that
+    are traded excess returns (GRS only when all are).  Vectorised over months: masked
+    normal equations solved as one (T, P, P) stack.
+    """
+    ret = _as_frame(returns, "returns")
+    notes: list[str] = []
+    rolling = isinstance(betas, RollingBetas)
+    if rolling:
+        rb = betas if betas.is_lagged else betas.lagged()
+        fnames = [str(f) for f in rb.factors]
+        assets = [str(s) for s in rb.series]
+        missing = [a for a in assets if a not in ret.columns]
+        if missing:
+            raise InputError(f"rolling betas for '{missing[0]}' but no returns for it.",
+                             file="assets", column=missing[0], fix="Estimate betas on the same assets.")
+        dates = ret.index.intersection(rb.dates).sort_values()
+        pos = rb.dates.get_indexer(dates)
+        bvals = rb.values[pos]
+    elif isinstance(betas, pd.DataFrame):
+        bframe = betas.astype(float)
+        bframe.index = bframe.index.map(str)
+        fnames = [str(c) for c in bframe.columns]
+        missing = [a for a in bframe.index if a not in ret.columns]
+        if missing:
+            raise InputError(f"betas for '{missing[0]}' but no returns for it.", file="assets",
+                             column=missing[0], fix="Estimate betas on the same assets.")
+        blank = bframe.index[bframe.isna().any(axis=1)]
+        if len(blank):
+            notes.append(f"{len(blank)} asset(s) without betas left out: {', '.join(blank[:5])}.")
+            bframe = bframe.drop(index=blank)
+        assets = list(bframe.index)
+        dates = ret.index.sort_values()
+        bvals = None
+    else:
+        raise InputError(f"betas must be a DataFrame or RollingBetas, not {type(betas).__name__}.",
+                         fix="Pass ExposureResult.assets.betas or rolling_assets.")
+    k = len(fnames)
+    fac = None
+    if factors is not None:
+        fac = _as_frame(factors, "factors")
+        absent = [f for f in fnames if f not in fac.columns]
+        if absent:
+            raise InputError(f"factor '{absent[0]}' of the betas is not in factors.", file="factors",
+                             column=absent[0], fix="Pass the factor frame the betas were estimated on.")
+        fac = fac[fnames]
+        ok_dates = fac.index[fac.notna().all(axis=1)]
+        keep = dates.isin(ok_dates)
+        if bvals is not None:
+            bvals = bvals[keep]
+        dates = dates[keep]
+    dates = pd.PeriodIndex(dates, name="date")
+    y = ret.loc[dates, assets].to_numpy(dtype=float)
+    t_all, n = y.shape
+    p = k + int(intercept)
+    names = ([CONST] if intercept else []) + fnames
+
+    # Cross-sections, batched over months.
+    if rolling:
+        x = np.concatenate([np.ones((t_all, n, 1)), bvals], axis=2) if intercept else bvals.copy()
+        valid = np.isfinite(y) & np.isfinite(x).all(axis=2)
+        xm = np.where(valid[..., None], x, 0.0)
+        y0 = np.where(valid, y, 0.0)
+        xtx = np.matmul(xm.transpose(0, 2, 1), xm)
+        xty = np.einsum("tnp,tn->tp", xm, y0)
+    else:
+        bmat = bframe.to_numpy()
+        x = np.column_stack([np.ones(n), bmat]) if intercept else bmat
+        valid = np.isfinite(y)
+        y0 = np.where(valid, y, 0.0)
+        outer = np.einsum("nk,nl->nkl", x, x).reshape(n, p * p)
+        xtx = (valid.astype(float) @ outer).reshape(t_all, p, p)
+        xty = y0 @ x
+    count = valid.sum(axis=1)
+    used = count >= k + 2
+    if used.any():
+        used[used] &= _full_rank(xtx[used])
+    n_skipped = int((~used).sum())
+    t_used = int(used.sum())
+    if t_used < 2:
+        raise InputError(f"only {t_used} month(s) have {k + 2} or more assets with returns and betas.",
+                         file="assets", fix="Supply more test assets or a longer history.")
+    gamma = np.linalg.solve(xtx[used], xty[used][..., None])[..., 0]
+    lam = gamma.mean(axis=0)
+    dev = gamma - lam
+    cov_fm = dev.T @ dev / (t_used - 1) / t_used
+    lags = _resolve_lags(nw_lags, t_used, "nw_lags")
+    if lags >= t_used:
+        raise InputError(f"nw_lags ({lags}) must be below the number of months used ({t_used}).",
+                         column="nw_lags", fix="Use 'auto' or a smaller integer.")
+    s = dev.T @ dev
+    for lag in range(1, lags + 1):
+        g = dev[lag:].T @ dev[:-lag]
+        s += (1.0 - lag / (lags + 1.0)) * (g + g.T)
+    cov_nw = s / (t_used * (t_used - 1))
+
+    # Pricing errors on the months used.
+    yu, vu = y[used], valid[used]
+    fitted = (np.einsum("tnp,tp->tn", np.where(vu[..., None], x[used], 0.0), gamma) if rolling
+              else gamma @ x.T)
+    alpha_t = np.where(vu, yu - fitted, np.nan)
+    n_i = vu.sum(axis=0)
+    live = n_i > 0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        abar = np.nansum(np.where(vu, alpha_t, 0.0), axis=0) / n_i
+        rbar = np.where(vu, yu, 0.0).sum(axis=0) / n_i
+    r2_cs = float(1.0 - np.var(abar[live]) / np.var(rbar[live]))
+    d = np.where(vu, alpha_t - abar, 0.0)[:, live]
+    cov_a = (d.T @ d) / np.outer(n_i[live], n_i[live])
+    stat = float(abar[live] @ np.linalg.pinv(cov_a, rcond=1e-10, hermitian=True) @ abar[live])
+    df = int(live.sum()) - p
+    pe_test = _chi2_test(stat, df)
+
+    # Shanken.
+    cov_sh = np.full((p, p), np.nan)
+    c = float("nan")
+    if fac is not None:
+        fu = fac.loc[dates[used]].to_numpy(dtype=float)
+        sigma_f = np.atleast_2d(np.cov(fu, rowvar=False, ddof=0))
+        lam_f = lam[int(intercept):]
+        c = float(lam_f @ np.linalg.solve(sigma_f, lam_f))
+        tilde = np.zeros((p, p))
+        tilde[int(intercept):, int(intercept):] = sigma_f
+        if rolling:
+            cov_sh = (1.0 + c) * (cov_fm - tilde / t_used) + tilde / t_used
+        else:
+            if resid_cov is not None:
+                sig = pd.DataFrame(resid_cov).astype(float)
+                sig.index, sig.columns = sig.index.map(str), sig.columns.map(str)
+                try:
+                    sig = sig.loc[assets, assets].to_numpy()
+                except KeyError as exc:
+                    raise InputError("resid_cov does not cover every asset.", column="resid_cov",
+                                     fix="Pass the residual covariance of the same assets.") from exc
+            else:
+                fall = fac.loc[dates].to_numpy(dtype=float)
+                sig = _residual_cov(y, bmat, fall)
+                sig = np.where(np.isfinite(sig), sig, 0.0)
+            xtx_inv = np.linalg.inv(x.T @ x)
+            sandwich = xtx_inv @ x.T @ sig @ x @ xtx_inv
+            cov_sh = (sandwich * (1.0 + c) + tilde) / t_used
+    else:
+        notes.append("no factors given: Shanken errors and GRS not computed.")
+    pe_test_sh = _chi2_test(stat / (1.0 + c), df) if np.isfinite(c) else _chi2_test(float("nan"), df)
+
+    grs = None
+    if traded is not None:
+        traded_set = {str(t) for t in traded}
+        if set(fnames) <= traded_set and fac is not None:
+            grs = _grs(y, fac.loc[dates].to_numpy(dtype=float))
+            if grs is None:
+                notes.append("GRS not computed: too few months with every asset observed.")
+        elif not set(fnames) <= traded_set:
+            notes.append("GRS not computed: not every factor is a traded return.")
+
+    idx = pd.Index(names, name="factor")
+
+    def _series(v: np.ndarray, name: str) -> pd.Series:
+        return pd.Series(v, index=idx, name=name)
+
+    with np.errstate(invalid="ignore", divide="ignore"):
+        se_fm = np.sqrt(np.diag(cov_fm))
+        se_nw = np.sqrt(np.diag(cov_nw))
+        se_sh = np.sqrt(np.diag(cov_sh))
+        t_fm, t_nw, t_sh = lam / se_fm, lam / se_nw, lam / se_sh
+    return PremiaResult(
+        factors=tuple(names), lambda_=_series(lam, "lambda"), se_fm=_series(se_fm, "se_fm"),
+        se_nw=_series(se_nw, "se_nw"), se_shanken=_series(se_sh, "se_shanken"),
+        t_fm=_series(t_fm, "t_fm"), t_nw=_series(t_nw, "t_nw"), t_shanken=_series(t_sh, "t_shanken"),
+        shanken_approximate=rolling, r2_cs=r2_cs, n_periods=t_used, n_skipped=n_skipped,
+        gamma=pd.DataFrame(gamma, index=dates[used], columns=idx),
+        pricing_errors=pd.Series(abar, index=pd.Index(assets, name="asset"), name="pricing_error"),
+        pricing_error_test=pe_test, pricing_error_test_shanken=pe_test_sh, grs=grs, nw_lags=lags,
+        betas_used="rolling" if rolling else "full",
+        cov_fm=pd.DataFrame(cov_fm, index=idx, columns=idx),
+        cov_nw=pd.DataFrame(cov_nw, index=idx, columns=idx),
+        cov_shanken=pd.DataFrame(cov_sh, index=idx, columns=idx),
+        shanken_c=c, n_assets=int(live.sum()), intercept=bool(intercept), warnings=tuple(notes))
+
+
+def book_premium(book_betas: pd.Series, premia: PremiaResult, *, book_se: pd.Series | None = None,
+                 periods_per_year: int = 12) -> pd.DataFrame:
+    """Expected premium earned through each exposure, b_k lambda_k, with its standard error.
+
+    This is the expected return a hedge of that exposure gives up.  Var(b lambda) by the
+    delta method for independent estimates, b² Var(lambda) + lambda² Var(b) + Var(b)Var(lambda)
+    (the exact variance of a product of independent estimates); the ``total`` row uses the
+    full covariance of lambda, b' V b, plus the beta terms.  V is the Shanken covariance when
+    available, else Newey-West.  Annualised by ``periods_per_year`` (12 or 4), passed explicitly.
+    """
+    if periods_per_year not in (12, 4, 52, 1):
+        raise InputError(f"periods_per_year must be 12 (monthly) or 4 (quarterly), not {periods_per_year}.",
+                         column="periods_per_year", fix="Pass 12 or 4.")
+    b = pd.Series(book_betas, dtype=float)
+    fnames = [f for f in premia.lambda_.index if f != CONST]
+    unknown = [f for f in b.index if f not in fnames]
+    if unknown:
+        raise InputError(f"book exposure on '{unknown[0]}', which has no price of risk.",
+                         column=str(unknown[0]), fix="Estimate premia on the same factors.")
+    b = b.reindex(fnames, fill_value=0.0)
+    cov = premia.cov_shanken
+    source = "shanken"
+    if cov is None or not np.isfinite(cov.to_numpy()).all():
+        cov, source = premia.cov_nw, "newey_west"
+    v = cov.loc[fnames, fnames].to_numpy()
+    lam = premia.lambda_.loc[fnames].to_numpy()
+    se_b = (pd.Series(book_se, dtype=float).reindex(fnames).fillna(0.0).to_numpy()
+            if book_se is not None else np.zeros(len(fnames)))
+    bv = b.to_numpy()
+    prem = bv * lam
+    var = bv ** 2 * np.diag(v) + lam ** 2 * se_b ** 2 + se_b ** 2 * np.diag(v)
+    total_var = float(bv @ v @ bv + np.sum(lam ** 2 * se_b ** 2) + se_b ** 2 @ np.diag(v))
+    out = pd.DataFrame({"beta": bv, "price_of_risk": lam, "premium": prem, "premium_se": np.sqrt(var)},
+                       index=pd.Index(fnames, name="factor"))
+    out.loc["total"] = [np.nan, np.nan, prem.sum(), np.sqrt(total_var)]
+    out["premium_annual"] = out["premium"] * periods_per_year
+    out["premium_annual_se"] = out["premium_se"] * periods_per_year
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out["t"] = out["premium"] / out["premium_se"]
+    out.attrs["se_source"] = source
+    return out
