@@ -361,3 +361,21 @@ def test_orthogonalise_rejects_missing(fit) -> None:
     raw.iloc[3, 2] = np.nan
     with pytest.raises(InputError, match="column 'term'"):
         orthogonalise(raw)
+
+
+def test_realtime_options(demo) -> None:
+    """A criterion for the real-time lags is applied to the first window only; a rolling
+    window keeps a constant count; an outside market series replaces the stored one."""
+    rt = realtime_innovations(demo, lags="bic", min_window=120)
+    assert rt.lags == 1 and any("first 120 periods" in w for w in rt.warnings)
+    roll = realtime_innovations(demo, window=90)
+    assert (roll.n_obs.iloc[89:] == 90).all() and roll.raw.iloc[90:].notna().all().all()
+    market = demo["mkt"] * 2
+    f = estimate_states(demo).factors(market)
+    np.testing.assert_array_equal(f["mkt"], market.loc[f.index])
+    with pytest.raises(InputError, match="unknown factor choice"):
+        roll.factors(use="level")
+    with pytest.raises(InputError, match="too short"):
+        realtime_innovations(demo, window=12)
+    with pytest.raises(InputError, match="too few for a first fit"):
+        realtime_innovations(demo.iloc[:100], min_window=120)
