@@ -63,11 +63,11 @@ ASSETS = [
 ]
 # Tilts on [dy, term, def, rf] that give each basket a character; noise is added.
 TILTS = {
-    "banks": [0.1, 0.5, 0.6, -0.2], "insurers": [0.0, 0.4, 0.4, 0.1],
-    "utilities": [0.2, -0.1, 0.1, -0.5], "reits": [0.2, 0.2, 0.5, -0.4],
-    "homebuilders": [0.1, 0.3, 0.5, -0.5], "software": [-0.3, 0.1, -0.2, 0.2],
-    "semis": [-0.2, 0.2, 0.2, 0.1], "staples": [0.1, -0.1, -0.2, -0.1],
-    "airlines": [0.0, 0.1, 0.5, 0.0], "energy": [0.2, 0.3, 0.1, 0.3],
+    "banks": [0.1, 0.5, -0.6, -0.2], "insurers": [0.0, 0.4, -0.4, 0.1],
+    "utilities": [0.2, -0.1, -0.1, -0.5], "reits": [0.2, 0.2, -0.5, -0.4],
+    "homebuilders": [0.1, 0.3, -0.5, -0.5], "software": [-0.3, 0.1, -0.2, 0.2],
+    "semis": [-0.2, 0.2, -0.2, 0.1], "staples": [0.1, -0.1, -0.2, -0.1],
+    "airlines": [0.0, 0.1, -0.5, 0.0], "energy": [0.2, 0.3, 0.1, 0.3],
 }
 LATE_START = {"biotech": "1993-01", "semis": "1990-07"}
 HOLDINGS = {

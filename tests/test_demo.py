@@ -32,7 +32,7 @@ def test_truth_is_consistent():
     book = {f: sum(w[a] * t["asset_betas"][a][f] for a in w) for f in t["factors"]}
     for f, b in book.items():
         assert abs(b - t["book_betas"][f]) < 1e-12
-    assert book["term"] > 0.05 and book["def"] > 0.1  # a real term and default tilt to hedge
+    assert book["term"] > 0.05 and book["def"] < -0.1  # a real term and default tilt to hedge
 
 
 def test_simulation_is_seeded():

@@ -1,0 +1,281 @@
+"""Wiring: map a validated :class:`Config` and :class:`Dataset` onto the stage calls.
+
+Data flow one way: states -> exposures -> premia -> hedge -> stress / backtest.
+Every function here is a thin adapter: the numbers come from the stage modules.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from . import __version__
+from .config import Config
+from .errors import InputError
+from .inputs import Dataset, check_common_months, load_dataset
+
+Progress = Callable[[str], None] | None
+
+
+def _cfg_file(config: Config) -> str:
+    return str(config.path) if config.path else "configuration"
+
+
+def market_name(config: Config, data: Dataset) -> str:
+    st = config["states"]
+    if data.factors is not None:
+        return st["market"] or str(data.factors.columns[0])
+    return st["market"] or (st["order"][0] if st["order"] else str(data.states.columns[0]))
+
+
+# --------------------------------------------------------------------------- states
+
+@dataclass(frozen=True)
+class FactorSet:
+    """The factors every later stage uses, with the scenario map that goes with them."""
+
+    factors: pd.DataFrame
+    market: str
+    states: Any | None            # StateResult, or None in factors-file mode
+    transform: pd.DataFrame       # M (identity in factors-file mode)
+    sigma_u: pd.DataFrame         # raw innovation covariance (factor covariance in factors mode)
+    raw: pd.DataFrame             # raw innovations (the factors themselves in factors mode)
+    source: str                   # "var" or "factors file"
+
+
+def run_states(config: Config, data: Dataset):
+    from .states import estimate_states
+    st = config["states"]
+    if data.states is None:
+        raise InputError("the states command needs [data] states (the VAR is skipped with a factors file).",
+                         file=_cfg_file(config))
+    return estimate_states(data.states, lags=st["lags"], max_lags=st["max_lags"])
+
+
+def factor_set(config: Config, data: Dataset) -> FactorSet:
+    market = market_name(config, data)
+    if data.factors is not None:
+        f = data.factors.dropna()
+        if market not in f.columns:
+            raise InputError(f"the market factor {market!r} is not a column of the factors file.",
+                             file=data.factors.attrs.get("file"), row=1, fix="set [states] market.")
+        cols = [market] + [c for c in f.columns if c != market]
+        f = f[cols]
+        eye = pd.DataFrame(np.eye(len(cols)), index=cols, columns=cols)
+        return FactorSet(f, market, None, eye, f.cov(), f - f.mean(), "factors file")
+    states = run_states(config, data)
+    f = states.factors(use=config["states"]["market_factor"])
+    return FactorSet(f, market, states, states.transform, states.sigma_u, states.raw, "var")
+
+
+# --------------------------------------------------------------------------- exposures
+
+def _window(config: Config) -> int | None:
+    w = config["exposures"]["window"]
+    return None if w == "full" else int(w)
+
+
+def run_exposures(config: Config, data: Dataset, fs: FactorSet):
+    from .exposures import estimate_exposures
+    ex = config["exposures"]
+    if data.assets is None:
+        raise InputError("[data] assets is needed for exposures.", file=_cfg_file(config))
+    window = _window(config)
+    check_common_months(data.assets, fs.factors, ex["min_obs"], "the exposures")
+    holdings = data.holdings
+    if holdings is None and data.portfolio_returns is None:
+        raise InputError("neither [data] holdings nor [data] portfolio_returns is set; the book's exposure "
+                         "needs one of them.", file=_cfg_file(config),
+                         fix='add holdings = "holdings.csv" under [data].')
+    return estimate_exposures(fs.factors, data.assets, instruments=data.instruments, holdings=holdings,
+                              portfolio_returns=data.portfolio_returns, window=window,
+                              min_obs=ex["min_obs"], hac_lags=ex["hac_lags"])
+
+
+# --------------------------------------------------------------------------- premia
+
+def run_premia(config: Config, data: Dataset, fs: FactorSet, exposures):
+    from .premia import fama_macbeth
+    pr = config["premia"]
+    if pr["betas"] == "rolling":
+        if exposures.rolling_assets is None:
+            raise InputError('[premia] betas = "rolling" needs a rolling [exposures] window, not "full".',
+                             file=_cfg_file(config), fix="set [exposures] window = 60.")
+        betas = exposures.rolling_assets.lagged()
+    else:
+        betas = exposures.assets.betas
+    traded = [fs.market] if fs.source == "var" and config["states"]["market_factor"] == "return" else None
+    return fama_macbeth(data.assets, betas, factors=fs.factors, intercept=pr["intercept"],
+                        nw_lags=pr["nw_lags"], traded=traded)
+
+
+def premia_by_factor(premia, factors) -> pd.Series | None:
+    if premia is None:
+        return None
+    lam = premia.lambda_
+    return lam.reindex([f for f in factors if f in lam.index])
+
+
+# --------------------------------------------------------------------------- hedge
+
+def hedge_spec(config: Config, data: Dataset):
+    from .hedge import HedgeSpec
+    h = config["hedge"]
+    unknown = [i for i in h["exclude"] if data.sheet is not None and i not in data.sheet.index]
+    if unknown:
+        raise InputError(f"[hedge] exclude names {unknown[0]!r}, not an instrument of the sheet "
+                         f"({', '.join(data.sheet.index)}).", file=_cfg_file(config))
+    return HedgeSpec.from_sheet(data.sheet.reset_index(), neutralise=h["neutralise"], targets=dict(h["targets"]),
+                                tolerance=dict(h["tolerance"]) if isinstance(h["tolerance"], Mapping)
+                                else h["tolerance"],
+                                keep={k: tuple(v) for k, v in h["keep"].items()}, max_gross=h["max_gross"],
+                                exclude=h["exclude"], objective=h["objective"],
+                                premium_weight=h["premium_weight"], robust=h["robust"],
+                                confidence=h["confidence"])
+
+
+def _book_returns(data: Dataset, exposures) -> pd.Series:
+    if data.holdings is not None and data.assets is not None:
+        w = data.holdings
+        r = data.assets[w.index]
+        # months where every held asset is observed: the book's own return on that sample
+        return (r @ w).where(r.notna().all(axis=1))
+    return data.portfolio_returns
+
+
+def run_hedge(config: Config, data: Dataset, fs: FactorSet, exposures, premia, *, closest: bool = False):
+    from .hedge import design_overlay, instrument_covariance
+    if data.instruments is None or data.sheet is None or exposures.instruments is None:
+        raise InputError("the hedge needs [data] instruments and [data] instrument_sheet.", file=_cfg_file(config))
+    h = config["hedge"]
+    spec = hedge_spec(config, data)
+    sample = data.instruments.reindex(fs.factors.index).dropna()
+    ppy = data.periods_per_year
+    cov = instrument_covariance(sample, periods_per_year=ppy, method=h["covariance"])
+    book_variance = book_cov = None
+    if h["objective"] == "total":
+        book = _book_returns(data, exposures).reindex(sample.index)
+        ok = book.notna()
+        joined = pd.concat([book[ok].rename("__book__"), sample[ok]], axis=1)
+        c = joined.cov() * ppy
+        book_variance = float(c.loc["__book__", "__book__"])
+        book_cov = c.loc[list(sample.columns), "__book__"]
+    return design_overlay(exposures.book, exposures.instruments.betas, cov, data.sheet, nav=config["portfolio"]["nav"],
+                          spec=spec, premia=premia_by_factor(premia, fs.factors.columns),
+                          current=data.current_positions, book_se=exposures.book_se,
+                          instrument_se=exposures.instruments.se_hac, closest=closest or h["closest"],
+                          periods_per_year=ppy, book_variance=book_variance, book_instrument_cov=book_cov)
+
+
+# --------------------------------------------------------------------------- stress
+
+def run_stress_stage(config: Config, data: Dataset, fs: FactorSet, exposures, hedge):
+    from .stress import overlay_exposure, run_stress
+    s = config["stress"]
+    overlay = overlay_se = None
+    if hedge is not None and exposures.instruments is not None:
+        overlay, overlay_se = overlay_exposure(hedge.positions, exposures.instruments.betas,
+                                               exposures.instruments.se_hac)
+    return run_stress(exposures.book, fs.transform, fs.sigma_u, nav=config["portfolio"]["nav"], market=fs.market,
+                      overlay_betas=overlay, scenarios=list(s["scenarios"]), book_se=exposures.book_se,
+                      overlay_se=overlay_se, raw_innovations=fs.raw, factors=fs.factors,
+                      book_returns=_book_returns(data, exposures), worst_k=s["worst_k"],
+                      recession_quantile=s["recession_quantile"])
+
+
+# --------------------------------------------------------------------------- backtest
+
+def run_backtest_stage(config: Config, data: Dataset, exposures, *, progress=None, rebalance: str | None = None):
+    from .backtest import walk_forward
+    if data.states is None:
+        raise InputError("the walk-forward check re-estimates the VAR and needs [data] states.",
+                         file=_cfg_file(config))
+    b = config["backtest"]
+    st = config["states"]
+    spec = hedge_spec(config, data)
+    window = None if b["window"] == "expanding" else int(b["window"])
+    return walk_forward(data.states, _book_returns(data, exposures), data.instruments, data.sheet, spec=spec,
+                        nav=config["portfolio"]["nav"], lags=st["lags"] if isinstance(st["lags"], int) else 1,
+                        min_window=b["min_months"], window=window,
+                        beta_window=_window(config), rebalance=rebalance or b["rebalance"], start=b["start"],
+                        periods_per_year=data.periods_per_year,
+                        covariance_method=config["hedge"]["covariance"], progress=progress)
+
+
+# --------------------------------------------------------------------------- whole job
+
+@dataclass(frozen=True)
+class RunResult:
+    """Every stage's result for one run, and the merged JSON."""
+
+    config: Config
+    data: Dataset
+    factor_set: FactorSet
+    exposures: Any
+    premia: Any
+    hedge: Any
+    stress: Any
+    backtest: Any = None
+    meta: dict = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        from .display import CAUTIONS
+        st = self.factor_set.states
+        return {
+            "meta": self.meta,
+            "states": st.to_dict() if st is not None else None,
+            "exposures": self.exposures.to_dict() if self.exposures is not None else None,
+            "premia": self.premia.to_dict() if self.premia is not None else None,
+            "hedge": self.hedge.to_dict() if self.hedge is not None else None,
+            "stress": self.stress.to_dict() if self.stress is not None else None,
+            "backtest": self.backtest.to_dict() if self.backtest is not None else None,
+            "warnings": list(self.warnings),
+            "cautions": list(CAUTIONS),
+        }
+
+
+def _meta(config: Config, data: Dataset, fs: FactorSet) -> dict[str, Any]:
+    idx = fs.factors.index
+    return {
+        "fund": config["portfolio"]["name"], "nav": config["portfolio"]["nav"],
+        "currency": config["portfolio"]["currency"],
+        "sample_start": str(idx[0]), "sample_end": str(idx[-1]), "periods": int(len(idx)),
+        "frequency": data.frequency, "version": __version__, "config": _cfg_file(config),
+        "run_at": _dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat(),
+        "input_hashes": dict(data.hashes), "factors": list(map(str, fs.factors.columns)),
+        "factor_source": fs.source, "market": fs.market,
+        "neutralise": list(config["hedge"]["neutralise"]),
+        "keep": {k: list(v) for k, v in config["hedge"]["keep"].items()},
+    }
+
+
+def run_all(config: Config, *, data: Dataset | None = None, backtest: bool = False, closest: bool = False,
+            progress: Progress = None, backtest_progress=None) -> RunResult:
+    """The whole job: states, exposures, premia, hedge, stress and optionally the backtest."""
+    note = progress or (lambda _msg: None)
+    data = data if data is not None else load_dataset(config)
+    note("states")
+    fs = factor_set(config, data)
+    note("exposures")
+    exposures = run_exposures(config, data, fs)
+    note("premia")
+    premia = run_premia(config, data, fs, exposures)
+    note("hedge")
+    hedge = run_hedge(config, data, fs, exposures, premia, closest=closest)
+    note("stress")
+    stress = run_stress_stage(config, data, fs, exposures, hedge)
+    bt = None
+    if backtest:
+        note("backtest")
+        bt = run_backtest_stage(config, data, exposures, progress=backtest_progress)
+    warnings = list(data.warnings)
+    for part in (fs.states, exposures, premia, hedge, stress, bt):
+        warnings += list(getattr(part, "warnings", ()) or ())
+    return RunResult(config, data, fs, exposures, premia, hedge, stress, bt, _meta(config, data, fs),
+                     tuple(dict.fromkeys(warnings)))
