@@ -212,8 +212,8 @@ def _chol_transform(cov: np.ndarray, variables) -> np.ndarray:
     diag = np.diag(cov)
     if chol is None or (np.diag(chol) ** 2 <= _RANK_TOL * diag).any():
         if chol is None:
-            j = next(i for i in range(1, k + 1)
-                     if np.linalg.eigvalsh(cov[:i, :i]).min() <= _RANK_TOL * diag[:i].max())
+            j = next((i for i in range(1, k + 1)
+                      if np.linalg.eigvalsh(cov[:i, :i]).min() <= _RANK_TOL * diag[:i].max()), k)
             j -= 1
         else:
             j = int(np.flatnonzero(np.diag(chol) ** 2 <= _RANK_TOL * diag)[0])

@@ -379,3 +379,11 @@ def test_realtime_options(demo) -> None:
         realtime_innovations(demo, window=12)
     with pytest.raises(InputError, match="too few for a first fit"):
         realtime_innovations(demo.iloc[:100], min_window=120)
+
+
+def test_orthogonalise_rejects_collinear_innovations() -> None:
+    rng = np.random.default_rng(0)
+    u = rng.standard_normal((50, 3))
+    u[:, 2] = u[:, 0] - u[:, 1]
+    with pytest.raises(InputError, match="innovation of 'c' is a linear combination of those of a, b"):
+        orthogonalise(pd.DataFrame(u, columns=["a", "b", "c"]))
