@@ -737,10 +737,10 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
                          fix="pass premia from the Fama-MacBeth stage or set premium_weight = 0")
 
     c_pH_all = None
-    if spec.objective == "total":
-        if book_variance is None or book_instrument_cov is None:
-            raise InputError("objective 'total' needs book_variance and book_instrument_cov",
-                             column="objective", fix="pass them or use objective = 'tracking'")
+    if spec.objective == "total" and (book_variance is None or book_instrument_cov is None):
+        raise InputError("objective 'total' needs book_variance and book_instrument_cov",
+                         column="objective", fix="pass them or use objective = 'tracking'")
+    if book_variance is not None and book_instrument_cov is not None:
         bic = pd.Series(book_instrument_cov).copy()
         bic.index = bic.index.astype(str)
         c_pH_all = _numeric(bic.reindex(instruments), "book_instrument_cov")
@@ -770,7 +770,7 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
     targets = np.array([spec.targets.get(f, 0.0) for f in spec.neutralise])
     tol = np.array([spec.tolerance_for(f) for f in spec.neutralise])
     lin = np.zeros(len(active))
-    if c_pH_all is not None:
+    if spec.objective == "total" and c_pH_all is not None:
         lin += 2.0 * c_pH_all[act]
     if spec.premium_weight > 0 and lam is not None:
         lin += spec.premium_weight * (-(B @ lam) * periods_per_year)
@@ -878,7 +878,7 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
                                   b_p[k_idx] + B[:, k_idx].T @ h_act)
         message = message or "Targets reached at minimum " + (
             "tracking variance." if spec.objective == "tracking" else "total variance.")
-        if c_pH_all is not None and objective_value is not None:
+        if spec.objective == "total" and objective_value is not None:
             objective_value += float(book_variance)
 
     # ---- robust vs nominal size

@@ -1,0 +1,381 @@
+"""Overlay optimiser: invariants, reachability, reuse of the compiled program, ticket."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from hedgekit.errors import InputError
+from hedgekit.hedge import (
+    CAUTIONS,
+    HedgeSpec,
+    OverlayProblem,
+    design_overlay,
+    instrument_covariance,
+)
+
+FACTORS = ["mkt", "dy", "term", "def", "rf", "extra"]
+
+
+def make_case(seed: int, n_inst: int = 8, cost: bool = True):
+    """Seeded instruments x 6 factors: betas, covariance, book, sheet with wide limits."""
+    rng = np.random.default_rng(seed)
+    names = [f"inst_{j}" for j in range(n_inst)]
+    betas = pd.DataFrame(rng.normal(0.0, 0.4, (n_inst, len(FACTORS))), index=names,
+                         columns=FACTORS)
+    betas["mkt"] += np.where(np.arange(n_inst) == 0, 1.0, 0.0)
+    monthly = rng.normal(0.0, 0.02, (240, n_inst))
+    cov = instrument_covariance(pd.DataFrame(monthly, columns=names))
+    book = pd.Series(rng.normal(0.2, 0.3, len(FACTORS)), index=FACTORS)
+    book["mkt"] = 1.0
+    sheet = pd.DataFrame({
+        "instrument": names,
+        "multiplier": rng.choice([50.0, 1000.0, 100000.0], n_inst),
+        "price": rng.uniform(90.0, 110.0, n_inst),
+        "cost_bps": rng.uniform(0.5, 5.0, n_inst) if cost else 0.0,
+        "min_weight": -3.0, "max_weight": 3.0,
+    })
+    return betas, cov, book, sheet
+
+
+BASE = dict(neutralise=("term", "def"), keep={"mkt": (0.9, 1.1)}, max_gross=10.0)
+
+
+def solve(seed=0, *, spec_kw=None, nav=1e8, n_inst=8, cost=True, **kw):
+    betas, cov, book, sheet = make_case(seed, n_inst, cost)
+    spec = HedgeSpec.from_sheet(sheet, **(BASE if spec_kw is None else spec_kw))
+    return design_overlay(book, betas, cov, sheet, nav=nav, spec=spec, **kw)
+
+
+# ------------------------------------------------------------------ basic ticket
+
+def test_ticket_numbers_follow_from_the_positions():
+    """Contracts = round(h NAV / (price x multiplier)) (methods.md section 4); exposures,
+    tracking error, premium and cost recomputed by hand from the positions."""
+    betas, cov, book, sheet = make_case(1)
+    lam = pd.Series(0.003, index=FACTORS)
+    current = pd.Series({"inst_2": 0.1})
+    spec = HedgeSpec.from_sheet(sheet, **BASE)
+    res = design_overlay(book, betas, cov, sheet, nav=2.5e8, spec=spec, premia=lam,
+                         current=current)
+    assert res.status == "optimal"
+    h = res.positions
+    unit = (sheet.set_index("instrument")["price"] * sheet.set_index("instrument")["multiplier"])
+    np.testing.assert_array_equal(res.contracts.to_numpy(),
+                                  np.rint(h * 2.5e8 / unit).astype(int).to_numpy())
+    np.testing.assert_allclose(res.exposure_after, book + betas.T @ h, atol=1e-12)
+    assert abs(res.exposure_after["term"]) < 1e-7 and abs(res.exposure_after["def"]) < 1e-7
+    h_r = res.contracts * unit / 2.5e8
+    np.testing.assert_allclose(res.exposure_after_rounded, book + betas.T @ h_r, atol=1e-12)
+    assert res.tracking_error == pytest.approx(math.sqrt(h @ cov @ h), rel=1e-12)
+    assert res.premium_given_up == pytest.approx(-(betas.T @ h) @ lam * 12, rel=1e-12)
+    trade = h - current.reindex(h.index).fillna(0.0)
+    cost = (sheet.set_index("instrument")["cost_bps"] / 1e4 * trade.abs()).sum()
+    assert res.cost == pytest.approx(cost, rel=1e-12)
+    assert res.cost_currency == pytest.approx(cost * 2.5e8, rel=1e-12)
+    assert res.cautions == CAUTIONS and any("not investment advice" in c for c in res.cautions)
+    ticket = res.to_frame()
+    assert list(ticket.index) == list(betas.index)
+    assert {"weight", "notional", "contracts", "cost", "trade"} <= set(ticket.columns)
+
+
+def test_to_dict_is_json_with_contract_keys():
+    """interface.md `hedge` keys, plain JSON (NaN -> null)."""
+    res = solve(2, premia=pd.Series(0.002, index=FACTORS))
+    out = res.to_dict()
+    for key in ("status", "positions", "contracts", "exposure_before", "exposure_after",
+                "tracking_error", "cost", "premium_given_up", "unreachable"):
+        assert key in out
+    text = json.dumps(out, allow_nan=False)
+    back = json.loads(text)
+    assert back["status"] == "optimal" and back["unreachable"] == []
+    assert all(isinstance(v, int) for v in back["contracts"].values())
+    assert set(back["positions"]) == {f"inst_{j}" for j in range(8)}
+
+
+def test_objective_value_is_variance_plus_cost_plus_premium_term():
+    """The objective is h'Sh + sum c|h - h0| + w x premium given up (methods.md 4)."""
+    lam = pd.Series([0.006, -0.001, 0.003, 0.004, -0.002, 0.001], index=FACTORS)
+    betas, cov, book, sheet = make_case(3)
+    spec = HedgeSpec.from_sheet(sheet, premium_weight=0.5, **BASE)
+    res = design_overlay(book, betas, cov, sheet, nav=1e8, spec=spec, premia=lam)
+    h = res.positions
+    expect = h @ cov @ h + res.cost + 0.5 * res.premium_given_up
+    assert res.objective_value == pytest.approx(expect, rel=1e-7, abs=1e-10)
+    plain = design_overlay(book, betas, cov, sheet, nav=1e8,
+                           spec=HedgeSpec.from_sheet(sheet, **BASE), premia=lam)
+    assert res.premium_given_up <= plain.premium_given_up + 1e-9
+
+
+def test_current_optimal_overlay_is_not_traded():
+    """With costs measured from the current overlay, holding the zero-cost optimum is
+    optimal: any trade raises both variance and cost (first-order condition)."""
+    betas, cov, book, sheet = make_case(4, cost=False)
+    free = design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec.from_sheet(sheet, **BASE))
+    sheet = sheet.assign(cost_bps=4.0)
+    res = design_overlay(book, betas, cov, sheet, nav=1e8,
+                         spec=HedgeSpec.from_sheet(sheet, **BASE), current=free.positions)
+    assert res.status == "optimal"
+    np.testing.assert_allclose(res.trades.to_numpy(), 0.0, atol=1e-6)
+    assert res.cost < 1e-8
+
+
+def test_excluded_instruments_get_no_position():
+    res = solve(5, spec_kw={**BASE, "exclude": ("inst_1", "inst_3")})
+    assert res.status == "optimal"
+    assert res.positions["inst_1"] == 0.0 and res.positions["inst_3"] == 0.0
+    assert res.to_frame().loc["inst_1", "excluded"] == 1.0
+
+
+def test_weight_bounds_and_cap_respected_and_reported():
+    betas, cov, book, sheet = make_case(6)
+    free = design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec.from_sheet(sheet, **BASE))
+    cap = free.gross * 1.5
+    bound = np.abs(free.positions).max() * 0.9
+    sheet = sheet.assign(min_weight=-bound, max_weight=bound)
+    res = design_overlay(book, betas, cov, sheet, nav=1e8,
+                         spec=HedgeSpec.from_sheet(sheet, **{**BASE, "max_gross": cap}))
+    assert res.status == "optimal"
+    assert res.positions.abs().max() <= bound + 1e-8
+    assert res.gross <= cap + 1e-8
+    assert any("weight" in b for b in res.binding)
+    assert res.objective_value >= free.objective_value - 1e-9
+
+
+# ------------------------------------------------------------------ property tests
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10_000), nav=st.floats(1e6, 1e10), factor=st.integers(2, 50))
+def test_nav_scales_notionals_and_contracts_not_weights(seed, nav, factor):
+    """Common practice: weights are fractions of NAV, so NAV only scales money."""
+    a = solve(seed % 7, nav=nav)
+    b = solve(seed % 7, nav=nav * factor)
+    np.testing.assert_allclose(a.positions, b.positions, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(b.notional, a.notional * factor, rtol=1e-12)
+    # rounding to whole contracts: b's count is within one-half plus factor/2 of factor x a's
+    assert np.all(np.abs(b.contracts - factor * a.contracts) <= factor / 2 + 0.5 + 1e-9)
+    assert b.cost_currency == pytest.approx(a.cost_currency * factor, rel=1e-10)
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 5), perm=st.permutations(list(range(8))))
+def test_permuting_instruments_permutes_the_answer(seed, perm):
+    betas, cov, book, sheet = make_case(seed)
+    spec = HedgeSpec.from_sheet(sheet, **BASE)
+    base = design_overlay(book, betas, cov, sheet, nav=1e8, spec=spec)
+    order = betas.index[list(perm)]
+    shuffled = design_overlay(book, betas.loc[order], cov.loc[order, order],
+                              sheet.iloc[list(perm)], nav=1e8, spec=spec)
+    assert list(shuffled.positions.index) == list(order)
+    np.testing.assert_allclose(shuffled.positions.loc[betas.index], base.positions,
+                               atol=2e-6, rtol=0)
+    assert shuffled.objective_value == pytest.approx(base.objective_value, rel=1e-6, abs=1e-10)
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10_000), mkt=st.floats(0.92, 1.08))
+def test_already_neutral_zero_cost_book_gets_no_overlay(seed, mkt):
+    betas, cov, book, sheet = make_case(seed % 11, cost=False)
+    book = book.copy()
+    book[["term", "def"]] = 0.0
+    book["mkt"] = mkt
+    res = design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec.from_sheet(sheet, **BASE))
+    assert res.status == "optimal"
+    # interior-point accuracy: weights below 1e-6 of NAV, i.e. not one contract
+    np.testing.assert_allclose(res.positions.to_numpy(), 0.0, atol=1e-6)
+    assert (res.contracts == 0).all() and res.cost_currency == 0.0
+    assert res.tracking_error < 1e-6
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10_000), tol=st.floats(0.0, 0.2), extra=st.floats(0.0, 0.2))
+def test_looser_tolerance_never_raises_the_objective(seed, tol, extra):
+    betas, cov, book, sheet = make_case(seed % 13)
+    tight = design_overlay(book, betas, cov, sheet, nav=1e8,
+                           spec=HedgeSpec.from_sheet(sheet, **{**BASE, "tolerance": tol}))
+    loose = design_overlay(book, betas, cov, sheet, nav=1e8,
+                           spec=HedgeSpec.from_sheet(sheet, **{**BASE, "tolerance": tol + extra}))
+    assert tight.status == loose.status == "optimal"
+    assert loose.objective_value <= tight.objective_value + 1e-9
+    assert loose.exposure_after[["term", "def"]].abs().max() <= tol + extra + 1e-7
+
+
+# ------------------------------------------------------------------ unreachable
+
+def test_instruments_without_exposure_to_a_factor_are_unreachable():
+    betas, cov, book, sheet = make_case(7)
+    betas = betas.assign(extra=0.0)
+    book["extra"] = 0.3
+    spec = HedgeSpec.from_sheet(sheet, neutralise=("term", "extra"))
+    res = design_overlay(book, betas, cov, sheet, nav=1e8, spec=spec)
+    assert res.status == "unreachable"
+    assert res.unreachable == ("extra",)
+    assert any("extra" in b and "no active instrument" in b for b in res.binding)
+    np.testing.assert_array_equal(res.positions.to_numpy(), 0.0)      # no overlay proposed
+    np.testing.assert_allclose(res.exposure_after, res.exposure_before)
+    closest = design_overlay(book, betas, cov, sheet, nav=1e8, spec=spec, closest=True)
+    assert closest.status == "unreachable" and closest.unreachable == ("extra",)
+    assert abs(closest.exposure_after["term"]) < 1e-7          # what can be hedged is
+    assert closest.remaining["extra"] == pytest.approx(0.3, abs=1e-7)
+
+
+def test_excluding_the_only_loading_instruments_is_unreachable():
+    betas, cov, book, sheet = make_case(8)
+    betas.loc[:, "extra"] = 0.0
+    betas.loc["inst_4", "extra"] = 0.5
+    book["extra"] = 0.2
+    res = design_overlay(book, betas, cov, sheet, nav=1e8,
+                         spec=HedgeSpec.from_sheet(sheet, neutralise=("extra",),
+                                                   exclude=("inst_4",)))
+    assert res.status == "unreachable" and res.unreachable == ("extra",)
+
+
+def test_bounds_too_tight_are_unreachable_and_closest_sits_on_them():
+    betas, cov, book, sheet = make_case(9)
+    sheet = sheet.assign(min_weight=-0.01, max_weight=0.01)
+    spec = HedgeSpec.from_sheet(sheet, **BASE)
+    res = design_overlay(book, betas, cov, sheet, nav=1e8, spec=spec, closest=True)
+    assert res.status == "unreachable"
+    assert set(res.unreachable) & {"term", "def"}
+    assert any("max_weight" in b or "min_weight" in b for b in res.binding)
+    assert res.positions.abs().max() == pytest.approx(0.01, abs=1e-7)
+    assert res.remaining.sum() > 0.01
+    assert "closest" in res.message
+
+
+def test_gross_cap_too_small_is_unreachable():
+    spec_kw = {**BASE, "max_gross": 0.02}
+    res = solve(10, spec_kw=spec_kw, closest=True)
+    assert res.status == "unreachable"
+    assert set(res.unreachable) <= {"term", "def", "mkt"} and res.unreachable
+    assert any("cap" in b for b in res.binding)
+    assert res.gross == pytest.approx(0.02, abs=1e-7)
+
+
+def test_conflicting_bounds_and_cap_admit_no_overlay():
+    betas, cov, book, sheet = make_case(11)
+    sheet = sheet.assign(min_weight=0.1, max_weight=0.2)
+    res = design_overlay(book, betas, cov, sheet, nav=1e8,
+                         spec=HedgeSpec.from_sheet(sheet, neutralise=("term",), max_gross=0.1))
+    assert res.status == "unreachable" and "term" in res.unreachable
+    assert "admit no overlay" in " ".join(res.binding)
+
+
+# ------------------------------------------------------------------ robust option
+
+def test_robust_overlay_covers_the_confidence_interval_and_is_larger():
+    """Robust counterpart (Ben-Tal and Nemirovski 1999, ORL): |e_f| + z se_f(h) <= tol_f."""
+    betas, cov, book, sheet = make_case(12)
+    book_se = pd.Series(0.01, index=FACTORS)
+    inst_se = betas * 0 + 0.03
+    kw = {**BASE, "tolerance": 0.06}
+    nominal = design_overlay(book, betas, cov, sheet, nav=1e8,
+                             spec=HedgeSpec.from_sheet(sheet, **kw),
+                             book_se=book_se, instrument_se=inst_se)
+    robust = design_overlay(book, betas, cov, sheet, nav=1e8,
+                            spec=HedgeSpec.from_sheet(sheet, robust=True, **kw),
+                            book_se=book_se, instrument_se=inst_se)
+    assert robust.status == "optimal"
+    z = 1.959963984540054
+    for f in ("term", "def"):
+        se = math.sqrt(0.01 ** 2 + (0.03 ** 2 * robust.positions ** 2).sum())
+        assert robust.exposure_after_se[f] == pytest.approx(se, rel=1e-10)
+        assert abs(robust.exposure_after[f]) + z * se <= 0.06 + 1e-7
+    assert robust.robust_gross_ratio == pytest.approx(robust.gross / nominal.gross, rel=1e-9)
+    assert robust.tracking_error >= nominal.tracking_error - 1e-9
+    interval = robust.to_dict()["exposure_after_interval"]["term"]
+    assert interval[0] >= -0.06 - 1e-7 and interval[1] <= 0.06 + 1e-7
+
+
+def test_robust_with_zero_tolerance_is_unreachable_not_an_error():
+    betas, cov, book, sheet = make_case(13)
+    res = design_overlay(book, betas, cov, sheet, nav=1e8,
+                         spec=HedgeSpec.from_sheet(sheet, robust=True, **BASE),
+                         book_se=pd.Series(0.01, index=FACTORS), instrument_se=betas * 0 + 0.01)
+    assert res.status == "unreachable"
+    assert set(res.unreachable) == {"term", "def"}
+    assert any("half-width" in b for b in res.binding)
+
+
+def test_total_objective_lowers_total_risk_against_tracking():
+    betas, cov, book, sheet = make_case(14)
+    rng = np.random.default_rng(140)
+    corr = pd.Series(rng.normal(0, 0.002, len(betas)), index=betas.index)
+    args = dict(book_variance=0.03, book_instrument_cov=corr)
+    track = design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec.from_sheet(sheet, **BASE),
+                           **args)
+    total = design_overlay(book, betas, cov, sheet, nav=1e8,
+                           spec=HedgeSpec.from_sheet(sheet, objective="total", **BASE), **args)
+    assert total.total_risk_after <= track.total_risk_after + 1e-9
+    assert total.tracking_error >= track.tracking_error - 1e-9
+
+
+# ------------------------------------------------------------------ reuse
+
+def test_problem_is_built_once_and_re_solved_with_new_numbers():
+    betas, cov, book, sheet = make_case(15)
+    spec = HedgeSpec.from_sheet(sheet, **BASE)
+    problem = OverlayProblem.for_inputs(betas.index, spec, sheet)
+    compiled = problem._main
+    rng = np.random.default_rng(150)
+    for _ in range(3):
+        b2 = betas + rng.normal(0, 0.02, betas.shape)
+        bk = book + rng.normal(0, 0.02, len(book))
+        reused = design_overlay(bk, b2, cov, sheet, nav=1e8, spec=spec, problem=problem)
+        fresh = design_overlay(bk, b2, cov, sheet, nav=1e8, spec=spec,
+                               problem=OverlayProblem.for_inputs(betas.index, spec, sheet))
+        np.testing.assert_allclose(reused.positions, fresh.positions, atol=1e-9)
+    assert problem._main is compiled and problem.n_solves == 3
+    other = HedgeSpec.from_sheet(sheet, neutralise=("term",))
+    with pytest.raises(InputError, match="built for other"):
+        design_overlay(book, betas, cov, sheet, nav=1e8, spec=other, problem=problem)
+
+
+# ------------------------------------------------------------------ bad input
+
+@pytest.mark.parametrize("spec_kw, match", [
+    ({"neutralise": ("trem",)}, "trem"),
+    ({"keep": {"mkk": (0.9, 1.1)}}, "mkk"),
+    ({"neutralise": ("term",), "targets": {"dfe": 0.1}}, "dfe"),
+    ({"neutralise": ("term",), "targets": {"def": 0.1}}, "not neutralised"),
+    ({"neutralise": ("term",), "exclude": ("inst_99",)}, "inst_99"),
+])
+def test_unknown_names_raise_input_error_listing_valid_ones(spec_kw, match):
+    betas, cov, book, sheet = make_case(16)
+    with pytest.raises(InputError, match=match) as err:
+        design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec(**spec_kw))
+    assert err.value.fix
+
+
+def test_other_bad_input():
+    betas, cov, book, sheet = make_case(17)
+    spec = HedgeSpec(neutralise=("term",))
+    with pytest.raises(InputError, match="robust"):
+        design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec(neutralise=("term",),
+                                                                       robust=True))
+    with pytest.raises(InputError, match="book_variance"):
+        design_overlay(book, betas, cov, sheet, nav=1e8,
+                       spec=HedgeSpec(neutralise=("term",), objective="total"))
+    with pytest.raises(InputError, match="prices of risk"):
+        design_overlay(book, betas, cov, sheet, nav=1e8,
+                       spec=HedgeSpec(neutralise=("term",), premium_weight=1.0))
+    with pytest.raises(InputError, match="instrument sheet"):
+        design_overlay(book, betas, cov, sheet.iloc[1:], nav=1e8, spec=spec)
+    with pytest.raises(InputError, match="nav"):
+        design_overlay(book, betas, cov, sheet, nav=-1.0, spec=spec)
+    with pytest.raises(InputError, match="objective"):
+        HedgeSpec(objective="variance")
+    with pytest.raises(InputError, match="both"):
+        HedgeSpec(neutralise=("mkt",), keep={"mkt": (0.9, 1.1)})
+    with pytest.raises(InputError, match="method"):
+        instrument_covariance(pd.DataFrame({"a": [0.1, 0.2]}), method="shrunk")
+    with pytest.raises(InputError, match="positive semi-definite"):
+        bad = cov.copy()
+        bad.iloc[0, 0] = -1.0
+        design_overlay(book, betas, bad, sheet, nav=1e8, spec=spec)
