@@ -1,78 +1,255 @@
 """Command handlers: load what a command needs, run its stages, print its tables.
 
-Each handler returns ``(payload, exit_code)``; ``payload`` is the command's JSON.
+Each handler returns ``(payload, exit_code)``; ``payload`` is the command's JSON. Notes and
+progress go to stderr so ``--json`` keeps stdout to one JSON object.
 """
 
 from __future__ import annotations
 
+import os
 import sys
+import tempfile
 from pathlib import Path
 
-from . import display
+import pandas as pd
+
+from . import display, pipeline
 from .config import load_config
-from .errors import StageNotBuilt
+from .errors import InputError
 from .inputs import load_dataset
 
+# Which data files each command reads (the rest are not touched).
+NEEDS = {
+    "states": {"states", "factors"},
+    "exposures": {"states", "factors", "assets", "holdings", "portfolio_returns", "instruments"},
+    "premia": {"states", "factors", "assets", "holdings", "portfolio_returns"},
+    "hedge": {"states", "factors", "assets", "holdings", "portfolio_returns", "instruments", "instrument_sheet",
+              "current_positions"},
+    "stress": {"states", "factors", "assets", "holdings", "portfolio_returns", "instruments", "instrument_sheet",
+               "current_positions"},
+    "backtest": {"states", "assets", "holdings", "portfolio_returns", "instruments", "instrument_sheet"},
+}
 
-def _notes(msg: str) -> None:
+
+def _note(msg: str) -> None:
     print(msg, file=sys.stderr)
+
+
+def _console(args):
+    return display.make_console()
+
+
+def write_csv_atomic(frame: pd.DataFrame, path: Path) -> None:
+    """Write a CSV through a temporary file in the same folder, then rename: never half-written."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            out = frame.copy()
+            if isinstance(out.index, pd.PeriodIndex):
+                out.index = out.index.astype(str)
+            out.to_csv(fh, lineterminator="\n")
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
+def _write_tables(args, tables: dict[str, pd.DataFrame]) -> None:
+    if not getattr(args, "out", None):
+        return
+    folder = Path(args.out)
+    if folder.exists() and not folder.is_dir():
+        raise InputError("--out must name a folder, not a file.", file=str(folder))
+    for name, frame in tables.items():
+        if frame is not None:
+            write_csv_atomic(frame, folder / f"{name}.csv")
+    _note(f"tables written to {folder}/: {', '.join(f'{n}.csv' for n, f in tables.items() if f is not None)}")
+
+
+def _load(args, command: str):
+    config = load_config(args.config)
+    data = load_dataset(config, need=NEEDS.get(command))
+    for w in data.warnings:
+        _note(f"note: {w}")
+    return config, data
+
+
+# --------------------------------------------------------------------------- stage commands
+
+def cmd_states(args):
+    config, data = _load(args, "states")
+    fs = pipeline.factor_set(config, data)
+    if fs.states is None:
+        raise InputError("the config names a factors file, so the VAR step is skipped; "
+                         "remove [data] factors to estimate the states.", file=str(config.path))
+    res = fs.states
+    if not args.json:
+        display.show_states(_console(args), res)
+    for w in res.warnings:
+        _note(f"warning: {w}")
+    _write_tables(args, {"innovations_raw": res.raw, "innovations_orthogonal": res.orthogonal,
+                         "var_coefficients": res.to_frame(), "transform": res.transform})
+    return res.to_dict(), 0
+
+
+def cmd_exposures(args):
+    config, data = _load(args, "exposures")
+    fs = pipeline.factor_set(config, data)
+    res = pipeline.run_exposures(config, data, fs)
+    if not args.json:
+        con = _console(args)
+        display.show_exposures(con, res, fs, config)
+    _write_tables(args, {"exposures_book": res.to_frame(), "exposures_assets": res.assets.to_frame(),
+                         "exposures_instruments": res.instruments.to_frame() if res.instruments is not None else None,
+                         "exposures_rolling_book": res.rolling_book})
+    return res.to_dict(), 0
+
+
+def cmd_premia(args):
+    config, data = _load(args, "premia")
+    fs = pipeline.factor_set(config, data)
+    ex = pipeline.run_exposures(config, data, fs)
+    res = pipeline.run_premia(config, data, fs, ex)
+    if not args.json:
+        display.show_premia(_console(args), res, ex, data.periods_per_year)
+    _write_tables(args, {"premia": res.to_frame(), "pricing_errors": res.pricing_errors.to_frame("pricing_error"),
+                         "premia_monthly": res.gamma})
+    return res.to_dict(), 0
+
+
+def _hedge_code(res) -> int:
+    if res.status != "optimal":
+        _note(f"hedgekit: targets not reachable: {res.message}")
+        return 3
+    return 0
+
+
+def cmd_hedge(args):
+    config, data = _load(args, "hedge")
+    fs = pipeline.factor_set(config, data)
+    ex = pipeline.run_exposures(config, data, fs)
+    pr = pipeline.run_premia(config, data, fs, ex)
+    res = pipeline.run_hedge(config, data, fs, ex, pr, closest=args.closest)
+    if not args.json:
+        con = _console(args)
+        display.show_hedge(con, res, config)
+        display.print_cautions(con)
+    _write_tables(args, {"hedge_ticket": res.to_frame()})
+    return res.to_dict(), _hedge_code(res)
+
+
+def cmd_stress(args):
+    config, data = _load(args, "stress")
+    fs = pipeline.factor_set(config, data)
+    ex = pipeline.run_exposures(config, data, fs)
+    pr = pipeline.run_premia(config, data, fs, ex)
+    hedge = pipeline.run_hedge(config, data, fs, ex, pr, closest=args.closest)
+    if hedge.status != "optimal":
+        _note("note: the hedge targets are not reachable; 'after' columns use the closest overlay found"
+              if args.closest else "note: hedge unreachable; stress shows the book without an overlay")
+        if not args.closest:
+            hedge = None
+    res = pipeline.run_stress_stage(config, data, fs, ex, hedge)
+    if not args.json:
+        con = _console(args)
+        display.show_stress(con, res, config)
+        display.print_cautions(con)
+    _write_tables(args, {"stress": res.to_frame(), "replay_months": res.replay_months,
+                         "replay_quarters": res.replay_quarters})
+    return res.to_dict(), 0
+
+
+def cmd_backtest(args):
+    config, data = _load(args, "backtest")
+    fs = pipeline.factor_set(config, data)
+    ex = pipeline.run_exposures(config, data, fs)
+    with display.progress_bar("walk-forward") as tick:
+        res = pipeline.run_backtest_stage(config, data, ex, progress=tick, rebalance=args.rebalance)
+    if not args.json:
+        con = _console(args)
+        display.show_backtest(con, res, config)
+        display.print_cautions(con)
+    _write_tables(args, {"backtest_periods": res.to_frame()})
+    return res.to_dict(), 0
+
+
+# --------------------------------------------------------------------------- whole job
+
+def _whole_job(args, config_path: Path):
+    config = load_config(config_path)
+    data = load_dataset(config)
+    for w in data.warnings:
+        _note(f"note: {w}")
+    with display.progress_bar("walk-forward") as tick:
+        run = pipeline.run_all(config, data=data, backtest=getattr(args, "backtest", False),
+                               closest=getattr(args, "closest", False), progress=lambda s: _note(f"... {s}"),
+                               backtest_progress=tick)
+    payload = run.to_dict()
+    report_paths = {}
+    try:
+        from .report import write_report
+        report_paths = write_report(payload, Path(config["report"]["output"]),
+                                    formats=tuple(config["report"]["formats"]))
+        payload["report"] = {k: str(v) for k, v in report_paths.items()}
+    except ImportError:  # pragma: no cover - report module always ships
+        pass
+    if config["store"]["enabled"] and not getattr(args, "no_store", False):
+        from .store import RunStore
+        store = RunStore(Path(config["store"]["path"]))
+        run_id = store.record(payload, config.text, str(report_paths.get("html", "")))
+        payload["run_id"] = run_id
+    if not args.json:
+        con = _console(args)
+        display.show_run(con, run, payload)
+        display.print_cautions(con)
+    for key in ("html", "md"):
+        if key in report_paths:
+            _note(f"report written: {report_paths[key]}")
+    code = 0 if run.hedge is None or run.hedge.status == "optimal" else _hedge_code(run.hedge)
+    return payload, code
+
+
+def cmd_run(args):
+    return _whole_job(args, Path(args.config))
+
+
+def cmd_report(args):
+    return _whole_job(args, Path(args.config))
 
 
 def cmd_demo(args):
     from .demo import write_scenario
     folder = Path(args.dir)
     config_path = write_scenario(folder)
-    _notes(f"demo scenario (invented) written to {folder}/")
-    config = load_config(config_path)
-    data = load_dataset(config)
-    payload = {"config": str(config_path), "data": data.summary()}
+    _note(f"demo scenario (invented, simulated) written to {folder}/")
+    return _whole_job(args, config_path)
+
+
+def cmd_history(args):
+    from .store import RunStore
+    config = load_config(args.config)
+    path = Path(config["store"]["path"])
+    if not path.exists():
+        raise InputError("no run store yet: run 'hedgekit run' first.", file=str(path))
+    store = RunStore(path)
+    frame = store.history_frame(fund=config["portfolio"]["name"])
+    flags = store.flag_changes(fund=config["portfolio"]["name"], threshold=config["store"]["change_threshold"])
     if not args.json:
-        con = display.make_console()
-        _print_summary(con, config, data)
-        display.print_cautions(con)
-    return payload, 0
-
-
-def _print_summary(con, config, data) -> None:
-    s = data.summary()
-    plain = con.no_color
-    con.print(f"{config['portfolio']['name']}  (NAV {config['portfolio']['nav']:,.0f} "
-              f"{config['portfolio']['currency']}, {s['frequency']})")
-    rows = []
-    for key in ("states", "assets", "instruments", "factors"):
-        if key in s:
-            v = s[key]
-            rows.append([key, v["start"], v["end"], str(v["periods"]), str(len(v["columns"])),
-                         str(v["missing_cells"])])
-    con.print(display.table("Inputs", ["file", "first", "last", "periods", "series", "blank cells"], rows,
-                            plain=plain))
-    if data.holdings is not None:
-        con.print(display.table("Holdings (weight of NAV)", ["asset", "weight"],
-                                [[a, display.fmt(w, 2, pct=True)] for a, w in data.holdings.items()],
-                                plain=plain))
-    if data.sheet is not None:
-        con.print(display.table("Hedge instruments", ["instrument", "multiplier", "price", "cost bp",
-                                                      "min wt", "max wt"],
-                                [[i, display.fmt(r.multiplier, 0), display.fmt(r.price, 2),
-                                  display.fmt(r.cost_bps, 1), display.fmt(r.min_weight, 2),
-                                  display.fmt(r.max_weight, 2)] for i, r in data.sheet.iterrows()],
-                                plain=plain))
-    for w in data.warnings:
-        con.print(f"note: {w}")
+        display.show_history(_console(args), frame, flags)
+    _write_tables(args, {"history": frame})
+    return {"runs": store.history(fund=config["portfolio"]["name"]), "flags": flags}, 0
 
 
 def cmd_validate(args):
     config = load_config(args.config)
     data = load_dataset(config)
     if not args.json:
-        con = display.make_console()
-        _print_summary(con, config, data)
+        con = _console(args)
+        display.show_inputs(con, config, data)
         con.print("All input files read and checked.")
     return {"config": str(args.config), "data": data.summary()}, 0
 
 
 def dispatch(args):
-    handler = globals().get(f"cmd_{args.command}")
-    if handler is None:
-        raise StageNotBuilt(f"the '{args.command}' command is not built yet in this version.")
-    return handler(args)
+    return globals()[f"cmd_{args.command}"](args)
