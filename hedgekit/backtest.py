@@ -1,0 +1,436 @@
+"""Walk-forward check of the overlay hedge, with no look-ahead (methods.md section 5).
+
+At each rebalance date τ (quarter ends by default, or every month) and with data dated
+≤ τ only:
+
+1. real-time factors f_t = [market excess return, ũ_2, ..., ũ_K] for t ≤ τ, where row t
+   is the one-step forecast error of the VAR fitted through t-1, orthogonalised with that
+   fit's M (:func:`hedgekit.states.realtime_innovations`);
+2. time-series betas of the book and of each instrument on those factors
+   (:func:`hedgekit.exposures.time_series_betas`; expanding, or the last ``beta_window``
+   months), the annualised instrument covariance (:func:`hedgekit.hedge.instrument_covariance`)
+   and, when the objective prices exposures, Fama-MacBeth prices of risk on the test assets;
+3. the overlay (:func:`hedgekit.hedge.design_overlay`) re-solving one compiled
+   :class:`hedgekit.hedge.OverlayProblem`, trading from the overlay held before.
+
+The overlay h_τ (weights of NAV, held constant over the holding period, a common practice
+simplification) earns h_τ' r_{H,t} over τ+1 .. next rebalance; the cost of the trade is
+paid in month τ+1.  Every estimate at τ is computed on data sliced at τ, so changing any
+value dated after τ cannot change the decision made at τ (the tests check this to the bit).
+
+Evaluation, on the out-of-sample months (after the first rebalance):
+
+* realised exposures: OLS of the unhedged and hedged returns on the real-time factors of
+  those months, HAC errors (Newey and West 1987, Econometrica), normal intervals;
+* hedge effectiveness on the state-driven P&L b' f_t:
+  ``1 - b_h' S_f b_h / b_u' S_f b_u`` with S_f the sample covariance of the out-of-sample
+  factors and b_u, b_h the realised exposures; ``effectiveness_neutralised`` restricts b
+  and S_f to the neutralised factors (the figure a hedge of those factors should move);
+* realised tracking error sd(h' r_H) × sqrt(periods_per_year) against the predicted one,
+  sqrt(mean over held months of h_τ' Σ_H h_τ) (annualised);
+* turnover sum |h_τ - h_τ-| and costs paid, in total and per year.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from hedgekit.errors import InputError
+from hedgekit.exposures import time_series_betas
+from hedgekit.hedge import HedgeSpec, OverlayProblem, design_overlay, instrument_covariance
+from hedgekit.states import realtime_innovations
+
+__all__ = ["BacktestResult", "rebalance_schedule", "walk_forward"]
+
+_BOOK = "__book__"
+
+
+def _plain(x: Any) -> Any:
+    """Plain python for JSON: NaN -> None."""
+    if isinstance(x, dict):
+        return {str(k): _plain(v) for k, v in x.items()}
+    if isinstance(x, list | tuple):
+        return [_plain(v) for v in x]
+    if isinstance(x, np.integer):
+        return int(x)
+    if isinstance(x, np.bool_):
+        return bool(x)
+    if isinstance(x, float | np.floating):
+        x = float(x)
+        return None if math.isnan(x) else x
+    return x
+
+
+def _frame_dict(frame: pd.DataFrame) -> dict[str, dict[str, Any]]:
+    return {str(i): {str(c): _plain(v) for c, v in row.items()} for i, row in frame.iterrows()}
+
+
+@dataclass(frozen=True)
+class BacktestResult:
+    """Walk-forward decisions, the period-by-period series and their evaluation.
+
+    ``decisions``: rebalance date × instrument (weights of NAV); ``status``,
+    ``predicted_te_path`` (annualised), ``turnover_path`` and ``cost_path`` (fractions of
+    NAV) by rebalance date; ``book_betas_path`` and ``hedged_betas_path`` the in-sample
+    exposures at each decision.  ``series`` (month × column) holds ``book``, ``overlay``,
+    ``cost``, ``hedged`` (book + overlay), ``hedged_net`` (less cost), ``decision_date`` and
+    the out-of-sample factors as ``factor.<name>``.  ``realised_exposure`` and
+    ``realised_exposure_se`` have rows ``unhedged`` and ``hedged``.
+    """
+
+    rebalance_dates: pd.PeriodIndex
+    decisions: pd.DataFrame
+    status: pd.Series
+    predicted_te_path: pd.Series
+    turnover_path: pd.Series
+    cost_path: pd.Series
+    book_betas_path: pd.DataFrame
+    hedged_betas_path: pd.DataFrame
+    series: pd.DataFrame
+    factors: tuple[str, ...]
+    neutralised: tuple[str, ...]
+    realised_exposure: pd.DataFrame
+    realised_exposure_se: pd.DataFrame
+    confidence: float
+    effectiveness: float
+    effectiveness_neutralised: float | None
+    effectiveness_by_factor: pd.Series
+    variance_reduction: float
+    realised_tracking_error: float
+    predicted_tracking_error: float
+    turnover: float
+    turnover_annual: float
+    costs_paid: float
+    costs_paid_annual: float
+    nav: float
+    n_months: int
+    periods_per_year: int
+    settings: dict[str, Any]
+    warnings: tuple[str, ...] = field(default_factory=tuple)
+
+    def interval(self, which: str = "hedged") -> pd.DataFrame:
+        """Realised exposure interval at ``confidence`` (rows lo, hi) for one side."""
+        z = float(stats.norm.ppf(0.5 + self.confidence / 2))
+        b, s = self.realised_exposure.loc[which], self.realised_exposure_se.loc[which]
+        return pd.DataFrame({"beta": b, "se": s, "lo": b - z * s, "hi": b + z * s}).T
+
+    def to_frame(self) -> pd.DataFrame:
+        """The period-by-period series (what ``--out`` writes as CSV)."""
+        return self.series.copy()
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dict: the contract keys of interface.md plus the evaluation extras."""
+        dates = [str(d) for d in self.rebalance_dates]
+        decisions = {str(d): {str(i): _plain(v) for i, v in row.items()}
+                     for d, row in self.decisions.iterrows()}
+        series = self.series.copy()
+        series["decision_date"] = series["decision_date"].astype(str).replace("NaT", None)
+        intervals = {side: _frame_dict(self.interval(side).T) for side in ("unhedged", "hedged")}
+        covers = {f: bool(intervals["hedged"][f]["lo"] <= 0.0 <= intervals["hedged"][f]["hi"])
+                  if intervals["hedged"][f]["lo"] is not None else None for f in self.factors}
+        return _plain({
+            "rebalance_dates": dates,
+            "decisions": decisions,
+            "effectiveness": self.effectiveness,
+            "realised_tracking_error": self.realised_tracking_error,
+            "predicted_tracking_error": self.predicted_tracking_error,
+            "effectiveness_neutralised": self.effectiveness_neutralised,
+            "effectiveness_by_factor": self.effectiveness_by_factor.to_dict(),
+            "variance_reduction": self.variance_reduction,
+            "factors": list(self.factors),
+            "neutralised": list(self.neutralised),
+            "confidence": self.confidence,
+            "realised_exposure": _frame_dict(self.realised_exposure),
+            "realised_exposure_se": _frame_dict(self.realised_exposure_se),
+            "realised_exposure_interval": intervals,
+            "hedged_interval_covers_zero": covers,
+            "status": {str(d): s for d, s in self.status.items()},
+            "predicted_tracking_error_by_date": {str(d): v for d, v in
+                                                 self.predicted_te_path.items()},
+            "turnover": self.turnover,
+            "turnover_annual": self.turnover_annual,
+            "turnover_by_date": {str(d): v for d, v in self.turnover_path.items()},
+            "costs_paid": self.costs_paid,
+            "costs_paid_currency": self.costs_paid * self.nav,
+            "costs_paid_annual": self.costs_paid_annual,
+            "costs_by_date": {str(d): v for d, v in self.cost_path.items()},
+            "book_betas_by_date": _frame_dict(self.book_betas_path),
+            "hedged_betas_by_date": _frame_dict(self.hedged_betas_path),
+            "n_months": self.n_months,
+            "nav": self.nav,
+            "settings": self.settings,
+            "series": {"dates": [str(d) for d in series.index],
+                       **{str(c): series[c].tolist() for c in series.columns}},
+            "warnings": list(self.warnings),
+        })
+
+
+def rebalance_schedule(dates: pd.PeriodIndex, *, rebalance: str = "quarterly",
+                       first: pd.Period | None = None) -> pd.PeriodIndex:
+    """Rebalance dates among ``dates``: quarter ends (months 3, 6, 9, 12) or every month,
+    from ``first`` on, leaving at least one month to hold the last overlay."""
+    if rebalance not in ("quarterly", "monthly"):
+        raise InputError(f"unknown rebalance frequency '{rebalance}'.", column="rebalance",
+                         fix="use 'quarterly' or 'monthly'.")
+    cand = dates[:-1]
+    if rebalance == "quarterly" and dates.freqstr == "M":
+        cand = cand[np.asarray(cand.month) % 3 == 0]
+    if first is not None:
+        cand = cand[cand >= first]
+    return pd.PeriodIndex(cand, name="date")
+
+
+def _as_series(book_returns: pd.Series | pd.DataFrame) -> pd.Series:
+    if isinstance(book_returns, pd.DataFrame):
+        if book_returns.shape[1] != 1:
+            raise InputError("the book's returns must be one series (a one-column table).",
+                             file="portfolio_returns",
+                             fix="pass the portfolio's own returns, or assets @ holdings.")
+        book_returns = book_returns.iloc[:, 0]
+    if not isinstance(book_returns, pd.Series) or not isinstance(book_returns.index,
+                                                                  pd.PeriodIndex):
+        raise InputError("the book's returns must be a Series indexed by a PeriodIndex.",
+                         file="portfolio_returns", fix="index it with pd.PeriodIndex(..., freq='M').")
+    return pd.to_numeric(book_returns, errors="coerce").astype(float)
+
+
+def _to_period(value: Any, freq: str, what: str) -> pd.Period:
+    try:
+        return pd.Period(value, freq=freq)
+    except (TypeError, ValueError):
+        raise InputError(f"{what} '{value}' is not a date.", column=what,
+                         fix="write it as YYYY-MM.") from None
+
+
+def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFrame,
+                 instrument_returns: pd.DataFrame, sheet: pd.DataFrame, *, spec: HedgeSpec,
+                 nav: float, lags: int | str = 1, min_window: int = 120,
+                 window: int | None = None, beta_window: int | None = None,
+                 beta_min_obs: int = 36, rebalance: str = "quarterly",
+                 start: str | pd.Period | None = None, periods_per_year: int = 12,
+                 covariance_method: str = "sample", hac_lags: int | str = "auto",
+                 asset_returns: pd.DataFrame | None = None, nw_lags: int | str = "auto",
+                 closest: bool = True, confidence: float | None = None,
+                 progress: Callable[[int, int], None] | None = None) -> BacktestResult:
+    """Walk-forward re-estimation and hedge; see the module docstring for every step.
+
+    ``state_data``: market excess return then state levels (orthogonalisation order),
+    PeriodIndex.  ``window``: rolling VAR window (None = expanding from ``min_window``);
+    ``beta_window``: rolling window of betas and covariance (None = expanding).  The first
+    rebalance (default) is the first quarter end at which the VAR has ``min_window`` months
+    and the real-time factors give the book and every instrument ``beta_min_obs`` months;
+    ``start`` moves it later.  ``asset_returns`` (test assets) are needed when
+    ``spec.premium_weight > 0`` (Fama-MacBeth prices of risk at each date).  With
+    ``closest=True`` an unreachable date holds the closest reachable overlay (status
+    ``"unreachable"`` in ``status``).  ``progress(i, n)`` is called after each decision.
+    """
+    if not (isinstance(nav, int | float) and math.isfinite(nav) and nav > 0):
+        raise InputError(f"NAV must be a positive number, got {nav!r}.", column="nav",
+                         fix="set [portfolio] nav to the book's value in currency units.")
+    if beta_window is not None and (not isinstance(beta_window, int | np.integer)
+                                    or beta_window < beta_min_obs):
+        raise InputError(f"beta_window must be an integer of at least beta_min_obs "
+                         f"({beta_min_obs}) months, got {beta_window!r}.", column="beta_window",
+                         fix="use e.g. 60, or leave it empty for an expanding window.")
+    if not isinstance(instrument_returns, pd.DataFrame) or instrument_returns.shape[1] == 0:
+        raise InputError("instrument returns must be a non-empty table.", file="instruments",
+                         fix="one column of excess returns per hedge instrument.")
+    if spec.premium_weight > 0 and asset_returns is None:
+        raise InputError("the hedge objective uses prices of risk but no test-asset returns "
+                         "were given to estimate them at each date.", column="premium_weight",
+                         fix="pass asset_returns or set premium_weight = 0.")
+    conf = float(spec.confidence if confidence is None else confidence)
+    warnings: list[str] = []
+
+    rt = realtime_innovations(state_data, lags=lags, min_window=min_window, window=window)
+    warnings += list(rt.warnings)
+    fac_all = rt.factors()
+    factors = tuple(str(c) for c in fac_all.columns)
+    freq = fac_all.index.freqstr
+    months = fac_all.index
+    book = _as_series(book_returns).reindex(months)
+    inst = instrument_returns.apply(pd.to_numeric, errors="coerce").astype(float).reindex(months)
+    instruments = [str(c) for c in inst.columns]
+    inst.columns = instruments
+    known = fac_all.notna().all(axis=1).to_numpy()
+    panel = pd.concat([book.rename(_BOOK), inst], axis=1)
+
+    # Earliest date with enough real-time factor months for every series (cumulative, so
+    # nothing after a date decides whether that date qualifies).
+    valid = (panel.notna().to_numpy() & known[:, None]).cumsum(axis=0)
+    ready = (valid >= beta_min_obs).all(axis=1)
+    if not ready.any():
+        raise InputError(
+            f"no date has {beta_min_obs} months of real-time factors for the book and every "
+            f"instrument after a first VAR fit on {min_window} months.",
+            fix="use a longer sample, or lower min_window / beta_min_obs.")
+    earliest = months[int(np.argmax(ready))]
+    first = earliest
+    if start is not None:
+        first = _to_period(start, freq, "start")
+        if first < earliest:
+            raise InputError(f"the first rebalance {first} comes before the first date with "
+                             f"enough history ({earliest}).", column="start",
+                             fix=f"start at {earliest} or later, or leave start empty.")
+    dates = rebalance_schedule(months, rebalance=rebalance, first=first)
+    if len(dates) == 0:
+        raise InputError(f"no rebalance date between {first} and the last month but one.",
+                         column="start", fix="start earlier or use a longer sample.")
+
+    problem = OverlayProblem.for_inputs(instruments, spec, sheet)
+    lam_factors = None
+    n = len(dates)
+    pos = np.zeros((n, len(instruments)))
+    te = np.zeros(n)
+    turn = np.zeros(n)
+    cost = np.zeros(n)
+    status: list[str] = []
+    b_path = np.zeros((n, len(factors)))
+    bh_path = np.zeros((n, len(factors)))
+    h_prev = pd.Series(0.0, index=instruments)
+    loc = {d: i for i, d in enumerate(months)}
+    for i, tau in enumerate(dates):   # one estimation and one solver call per rebalance
+        end = loc[tau] + 1
+        rows = np.flatnonzero(known[:end])
+        if beta_window is not None:
+            rows = rows[-int(beta_window):]
+        f_win = fac_all.iloc[rows]
+        p_win = panel.iloc[rows]
+        est = time_series_betas(p_win, f_win, hac_lags=hac_lags)
+        betas, se = est.betas, est.se_hac
+        if betas.isna().to_numpy().any():
+            bad = betas.index[betas.isna().any(axis=1)][0]
+            raise InputError(f"no betas for '{bad if bad != _BOOK else 'the book'}' at {tau}.",
+                             row=str(tau), column=None if bad == _BOOK else str(bad),
+                             fix="start later or supply more history for that series.")
+        i_win = inst.iloc[rows]
+        cov = instrument_covariance(i_win, periods_per_year=periods_per_year,
+                                    method=covariance_method)
+        kw: dict[str, Any] = {}
+        if spec.objective == "total":
+            both = p_win.dropna()
+            c = np.cov(both.to_numpy().T, ddof=1) * periods_per_year
+            kw["book_variance"] = float(c[0, 0])
+            kw["book_instrument_cov"] = pd.Series(c[0, 1:], index=instruments)
+        if spec.robust:
+            kw["book_se"] = se.loc[_BOOK]
+            kw["instrument_se"] = se.loc[instruments]
+        if spec.premium_weight > 0:
+            lam_factors = _prices_of_risk(asset_returns, f_win, nw_lags=nw_lags)
+            kw["premia"] = lam_factors
+        res = design_overlay(betas.loc[_BOOK], betas.loc[instruments], cov, sheet, nav=nav,
+                             spec=spec, current=h_prev, closest=closest,
+                             periods_per_year=periods_per_year, problem=problem, **kw)
+        h = res.positions.reindex(instruments).fillna(0.0)
+        pos[i] = h.to_numpy()
+        te[i] = res.tracking_error
+        turn[i] = float(np.abs(h - h_prev).sum())
+        cost[i] = res.cost
+        status.append(res.status)
+        b_path[i] = res.exposure_before.reindex(factors).to_numpy()
+        bh_path[i] = res.exposure_after.reindex(factors).to_numpy()
+        h_prev = h
+        if progress is not None:
+            progress(i + 1, n)
+
+    n_unreach = sum(s != "optimal" for s in status)
+    if n_unreach:
+        first_bad = dates[[s != "optimal" for s in status].index(True)]
+        warnings.append(f"targets were unreachable at {n_unreach} of {n} rebalance dates "
+                        f"(first {first_bad}); " + ("the closest reachable overlay was held."
+                                                    if closest else "no overlay was held."))
+
+    # ---- hold each decision from τ+1 to the next rebalance (vectorised over months)
+    decisions = pd.DataFrame(pos, index=dates, columns=pd.Index(instruments, name="instrument"))
+    held = decisions.reindex(months).ffill().shift(1)
+    decision_date = pd.Series(dates, index=dates).reindex(months).ffill().shift(1)
+    te_held = pd.Series(te, index=dates).reindex(months).ffill().shift(1)
+    oos = months[months > dates[0]]
+    held, decision_date, te_held = held.loc[oos], decision_date.loc[oos], te_held.loc[oos]
+    r_h = inst.loc[oos]
+    missing_leg = (held.to_numpy() != 0) & ~np.isfinite(r_h.to_numpy())
+    if missing_leg.any():
+        warnings.append(f"{int(missing_leg.any(axis=1).sum())} month(s) with a held instrument's "
+                        "return missing: that leg counts as zero return.")
+    overlay = (held * r_h.fillna(0.0)).sum(axis=1)
+    cost_m = pd.Series(cost, index=dates).reindex(months).shift(1).reindex(oos).fillna(0.0)
+    book_oos = book.loc[oos]
+    hedged = book_oos + overlay
+    f_oos = fac_all.loc[oos]
+    series = pd.DataFrame({
+        "book": book_oos, "overlay": overlay, "cost": cost_m, "hedged": hedged,
+        "hedged_net": hedged - cost_m, "decision_date": decision_date,
+        "predicted_tracking_error": te_held,
+    }, index=oos)
+    series = pd.concat([series, f_oos.add_prefix("factor.")], axis=1)
+    series.index.name = "date"
+
+    # ---- evaluation on the out-of-sample months
+    use = book_oos.notna() & f_oos.notna().all(axis=1)
+    n_months = int(use.sum())
+    if n_months < len(factors) + 2:
+        raise InputError(f"only {n_months} out-of-sample month(s) to evaluate the hedge.",
+                         column="start", fix="start earlier or use a longer sample.")
+    sides = pd.DataFrame({"unhedged": book_oos[use], "hedged": hedged[use]})
+    real = time_series_betas(sides, f_oos[use], hac_lags=hac_lags)
+    b_real, se_real = real.betas.loc[["unhedged", "hedged"]], real.se_hac.loc[["unhedged",
+                                                                                "hedged"]]
+    s_f = np.cov(f_oos[use].to_numpy().T, ddof=1)
+    bu, bh = b_real.loc["unhedged"].to_numpy(), b_real.loc["hedged"].to_numpy()
+    eff = 1.0 - float(bh @ s_f @ bh) / float(bu @ s_f @ bu)
+    neutral = tuple(f for f in spec.neutralise if f in factors)
+    eff_n = None
+    if neutral:
+        j = [factors.index(f) for f in neutral]
+        snn = s_f[np.ix_(j, j)]
+        eff_n = 1.0 - float(bh[j] @ snn @ bh[j]) / float(bu[j] @ snn @ bu[j])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        eff_f = pd.Series(1.0 - bh ** 2 / bu ** 2, index=list(factors), name="effectiveness")
+    var_red = 1.0 - float(sides["hedged"].var(ddof=1) / sides["unhedged"].var(ddof=1))
+    realised_te = float(overlay.std(ddof=1) * math.sqrt(periods_per_year))
+    predicted_te = float(np.sqrt(np.mean(te_held.to_numpy() ** 2)))
+    years = len(oos) / periods_per_year
+    settings = {
+        "lags": rt.lags, "min_window": int(min_window), "window": window,
+        "beta_window": beta_window, "beta_min_obs": int(beta_min_obs), "rebalance": rebalance,
+        "first_rebalance": str(dates[0]), "covariance_method": covariance_method,
+        "objective": spec.objective, "closest": bool(closest),
+        "first_month": str(oos[0]), "last_month": str(oos[-1]),
+    }
+    return BacktestResult(
+        rebalance_dates=dates, decisions=decisions,
+        status=pd.Series(status, index=dates, name="status"),
+        predicted_te_path=pd.Series(te, index=dates, name="predicted_tracking_error"),
+        turnover_path=pd.Series(turn, index=dates, name="turnover"),
+        cost_path=pd.Series(cost, index=dates, name="cost"),
+        book_betas_path=pd.DataFrame(b_path, index=dates, columns=list(factors)),
+        hedged_betas_path=pd.DataFrame(bh_path, index=dates, columns=list(factors)),
+        series=series, factors=factors, neutralised=neutral,
+        realised_exposure=b_real.rename_axis(None), realised_exposure_se=se_real.rename_axis(None),
+        confidence=conf, effectiveness=eff, effectiveness_neutralised=eff_n,
+        effectiveness_by_factor=eff_f, variance_reduction=var_red,
+        realised_tracking_error=realised_te, predicted_tracking_error=predicted_te,
+        turnover=float(turn.sum()), turnover_annual=float(turn.sum() / years),
+        costs_paid=float(cost.sum()), costs_paid_annual=float(cost.sum() / years),
+        nav=float(nav), n_months=n_months, periods_per_year=int(periods_per_year),
+        settings=settings, warnings=tuple(warnings),
+    )
+
+
+def _prices_of_risk(asset_returns: pd.DataFrame, factors: pd.DataFrame, *,
+                    nw_lags: int | str) -> pd.Series:
+    """Fama-MacBeth prices of risk on the window: full-window betas of the test assets,
+    then the monthly cross-sections (Fama and MacBeth 1973, JPE)."""
+    from hedgekit.premia import fama_macbeth  # a later stage is optional at import time
+
+    r = asset_returns.reindex(factors.index)
+    betas = time_series_betas(r, factors).betas
+    res = fama_macbeth(r, betas, factors=factors, nw_lags=nw_lags)
+    return pd.Series(res.lambda_ if hasattr(res, "lambda_") else res.to_dict()["lambda"])
