@@ -45,6 +45,7 @@ from scipy import stats
 from hedgekit.errors import InputError
 from hedgekit.exposures import time_series_betas
 from hedgekit.hedge import HedgeSpec, OverlayProblem, design_overlay, instrument_covariance
+from hedgekit.premia import fama_macbeth
 from hedgekit.states import realtime_innovations
 
 __all__ = ["BacktestResult", "rebalance_schedule", "walk_forward"]
@@ -79,7 +80,8 @@ class BacktestResult:
     ``decisions``: rebalance date × instrument (weights of NAV); ``status``,
     ``predicted_te_path`` (annualised), ``turnover_path`` and ``cost_path`` (fractions of
     NAV) by rebalance date; ``book_betas_path`` and ``hedged_betas_path`` the in-sample
-    exposures at each decision.  ``series`` (month × column) holds ``book``, ``overlay``,
+    exposures at each decision; ``premia_path`` (monthly prices of risk) and
+    ``premium_given_up_path`` (annualised) when the objective prices exposures.  ``series`` (month × column) holds ``book``, ``overlay``,
     ``cost``, ``hedged`` (book + overlay), ``hedged_net`` (less cost), ``decision_date`` and
     the out-of-sample factors as ``factor.<name>``.  ``realised_exposure`` and
     ``realised_exposure_se`` have rows ``unhedged`` and ``hedged``.
@@ -93,6 +95,8 @@ class BacktestResult:
     cost_path: pd.Series
     book_betas_path: pd.DataFrame
     hedged_betas_path: pd.DataFrame
+    premia_path: pd.DataFrame | None
+    premium_given_up_path: pd.Series | None
     series: pd.DataFrame
     factors: tuple[str, ...]
     neutralised: tuple[str, ...]
@@ -163,6 +167,10 @@ class BacktestResult:
             "costs_by_date": {str(d): v for d, v in self.cost_path.items()},
             "book_betas_by_date": _frame_dict(self.book_betas_path),
             "hedged_betas_by_date": _frame_dict(self.hedged_betas_path),
+            "premia_by_date": None if self.premia_path is None
+            else _frame_dict(self.premia_path),
+            "premium_given_up_by_date": None if self.premium_given_up_path is None
+            else {str(d): v for d, v in self.premium_given_up_path.items()},
             "n_months": self.n_months,
             "nav": self.nav,
             "settings": self.settings,
@@ -217,6 +225,7 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
                  start: str | pd.Period | None = None, periods_per_year: int = 12,
                  covariance_method: str = "sample", hac_lags: int | str = "auto",
                  asset_returns: pd.DataFrame | None = None, nw_lags: int | str = "auto",
+                 premia_intercept: bool = True,
                  closest: bool = True, confidence: float | None = None,
                  progress: Callable[[int, int], None] | None = None) -> BacktestResult:
     """Walk-forward re-estimation and hedge; see the module docstring for every step.
@@ -285,7 +294,8 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
                          column="start", fix="start earlier or use a longer sample.")
 
     problem = OverlayProblem.for_inputs(instruments, spec, sheet)
-    lam_factors = None
+    lam_rows: list[pd.Series] = []
+    given_up = np.full(len(dates) if len(dates) else 0, np.nan)
     n = len(dates)
     pos = np.zeros((n, len(instruments)))
     te = np.zeros(n)
@@ -323,8 +333,10 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
             kw["book_se"] = se.loc[_BOOK]
             kw["instrument_se"] = se.loc[instruments]
         if spec.premium_weight > 0:
-            lam_factors = _prices_of_risk(asset_returns, f_win, nw_lags=nw_lags)
-            kw["premia"] = lam_factors
+            lam = _prices_of_risk(asset_returns, f_win, nw_lags=nw_lags,
+                                  intercept=premia_intercept)
+            lam_rows.append(lam.rename(tau))
+            kw["premia"] = lam
         res = design_overlay(betas.loc[_BOOK], betas.loc[instruments], cov, sheet, nav=nav,
                              spec=spec, current=h_prev, closest=closest,
                              periods_per_year=periods_per_year, problem=problem, **kw)
@@ -336,6 +348,8 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
         status.append(res.status)
         b_path[i] = res.exposure_before.reindex(factors).to_numpy()
         bh_path[i] = res.exposure_after.reindex(factors).to_numpy()
+        if res.premium_given_up is not None:
+            given_up[i] = res.premium_given_up
         h_prev = h
         if progress is not None:
             progress(i + 1, n)
@@ -412,6 +426,9 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
         cost_path=pd.Series(cost, index=dates, name="cost"),
         book_betas_path=pd.DataFrame(b_path, index=dates, columns=list(factors)),
         hedged_betas_path=pd.DataFrame(bh_path, index=dates, columns=list(factors)),
+        premia_path=pd.DataFrame(lam_rows).rename_axis("date") if lam_rows else None,
+        premium_given_up_path=(pd.Series(given_up, index=dates, name="premium_given_up")
+                               if np.isfinite(given_up).any() else None),
         series=series, factors=factors, neutralised=neutral,
         realised_exposure=b_real.rename_axis(None), realised_exposure_se=se_real.rename_axis(None),
         confidence=conf, effectiveness=eff, effectiveness_neutralised=eff_n,
@@ -425,12 +442,11 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
 
 
 def _prices_of_risk(asset_returns: pd.DataFrame, factors: pd.DataFrame, *,
-                    nw_lags: int | str) -> pd.Series:
-    """Fama-MacBeth prices of risk on the window: full-window betas of the test assets,
-    then the monthly cross-sections (Fama and MacBeth 1973, JPE)."""
-    from hedgekit.premia import fama_macbeth  # a later stage is optional at import time
-
-    r = asset_returns.reindex(factors.index)
-    betas = time_series_betas(r, factors).betas
-    res = fama_macbeth(r, betas, factors=factors, nw_lags=nw_lags)
-    return pd.Series(res.lambda_ if hasattr(res, "lambda_") else res.to_dict()["lambda"])
+                    nw_lags: int | str, intercept: bool) -> pd.Series:
+    """Fama-MacBeth prices of risk on the window: betas of the test assets over the window,
+    then the monthly cross-sections (Fama and MacBeth 1973, JPE; hedgekit.premia)."""
+    r = asset_returns.apply(pd.to_numeric, errors="coerce").astype(float).reindex(factors.index)
+    betas = time_series_betas(r, factors).betas.dropna()
+    res = fama_macbeth(r[betas.index], betas, factors=factors, intercept=intercept,
+                       nw_lags=nw_lags)
+    return res.lambda_

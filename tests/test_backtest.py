@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -14,14 +13,9 @@ from hedgekit.backtest import rebalance_schedule, walk_forward
 from hedgekit.errors import InputError
 from hedgekit.hedge import HedgeSpec
 
-DEMO = Path(__file__).resolve().parents[1] / "demo_portfolios"
+from .helpers import DEMO, read_demo
+
 NAV = 250_000_000.0
-
-
-def _read(name: str) -> pd.DataFrame:
-    df = pd.read_csv(DEMO / name)
-    df.index = pd.PeriodIndex(df.pop("date"), freq="M", name="date")
-    return df
 
 
 @pytest.fixture(scope="module")
@@ -30,9 +24,9 @@ def demo():
     spec = HedgeSpec.from_sheet(sheet, neutralise=("term", "def"), keep={"mkt": (0.95, 1.05)},
                                 max_gross=1.5)
     return {
-        "states": _read("states.csv"),
-        "book": _read("portfolio_returns.csv")["larkspur_fund"],
-        "instruments": _read("instruments.csv"),
+        "states": read_demo("states"),
+        "book": read_demo("portfolio_returns")["larkspur_fund"],
+        "instruments": read_demo("instruments"),
         "sheet": sheet,
         "spec": spec,
     }
@@ -196,3 +190,35 @@ def test_bad_input(demo):
     with pytest.raises(InputError, match="one series"):
         walk_forward(demo["states"], demo["instruments"], demo["instruments"], demo["sheet"],
                      spec=demo["spec"], nav=NAV)
+
+
+def test_premium_objective_uses_prices_of_risk_at_each_date(demo):
+    """With premium_weight > 0 the prices of risk are re-estimated at each date on data up
+    to it (Fama-MacBeth on the test assets) and the premium given up is recorded; the
+    first date's prices equal hedgekit.premia.fama_macbeth run by hand on that window."""
+    from dataclasses import replace
+
+    from hedgekit.exposures import time_series_betas
+    from hedgekit.premia import fama_macbeth
+    from hedgekit.states import realtime_innovations
+
+    n = 240
+    states, book = demo["states"].iloc[:n], demo["book"].iloc[:n]
+    inst, assets = demo["instruments"].iloc[:n], read_demo("assets").iloc[:n]
+    spec = replace(demo["spec"], premium_weight=0.5)
+    res = walk_forward(states, book, inst, demo["sheet"], spec=spec, nav=NAV, min_window=60,
+                       asset_returns=assets)
+    assert res.premia_path is not None and len(res.premia_path) == len(res.rebalance_dates)
+    assert res.premium_given_up_path is not None
+    assert np.isfinite(res.premium_given_up_path.to_numpy()).all()
+    tau = res.rebalance_dates[0]
+    f = realtime_innovations(states, min_window=60).factors()
+    f = f[f.notna().all(axis=1) & (f.index <= tau)]
+    r = assets.reindex(f.index)
+    b = time_series_betas(r, f).betas.dropna()
+    lam = fama_macbeth(r[b.index], b, factors=f).lambda_
+    np.testing.assert_allclose(res.premia_path.iloc[0].to_numpy(), lam.to_numpy(), rtol=1e-10)
+    # pricing the exposures changes the decisions against the pure tracking objective
+    plain = walk_forward(states, book, inst, demo["sheet"], spec=demo["spec"], nav=NAV,
+                         min_window=60)
+    assert not np.allclose(res.decisions.to_numpy(), plain.decisions.to_numpy(), atol=1e-6)

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -20,8 +19,9 @@ from hedgekit.stress import (
     scenario_shocks,
 )
 
-DEMO = Path(__file__).resolve().parents[1] / "demo_portfolios"
-TRUTH = json.loads((DEMO / "truth.json").read_text())
+from .helpers import read_demo, truth
+
+TRUTH = truth()
 V = TRUTH["variables"]
 M = pd.DataFrame(TRUTH["transform"]).T.loc[V, V]
 SIGMA = pd.DataFrame(TRUTH["var"]["sigma_u"]).T.loc[V, V]
@@ -29,23 +29,17 @@ BOOK = pd.Series(TRUTH["book_betas"]).loc[V]
 NAV = float(TRUTH["nav"])
 
 
-def _read(name: str) -> pd.DataFrame:
-    df = pd.read_csv(DEMO / name)
-    df.index = pd.PeriodIndex(df.pop("date"), freq="M", name="date")
-    return df
-
-
 @pytest.fixture(scope="module")
 def demo_sample():
     """True-parameter raw innovations and factors of the demo (VAR(1) residuals)."""
-    states = _read("states.csv")
+    states = read_demo("states")
     z = states[V].to_numpy()
     a = pd.DataFrame(TRUTH["var"]["coef"]).T.loc[V, [f"{v}.L1" for v in V]].to_numpy()
     c = pd.Series(TRUTH["var"]["intercept"]).loc[V].to_numpy()
     raw = pd.DataFrame(z[1:] - c - z[:-1] @ a.T, index=states.index[1:], columns=V)
     orth = pd.DataFrame(raw.to_numpy() @ M.to_numpy().T, index=raw.index, columns=V)
     factors = orth.assign(mkt=states["mkt"].iloc[1:])[V]
-    book = _read("portfolio_returns.csv")["larkspur_fund"]
+    book = read_demo("portfolio_returns")["larkspur_fund"]
     return raw, factors, book
 
 
