@@ -238,7 +238,11 @@ def cmd_history(args):
     if not args.json:
         display.show_history(_console(args), frame, flags)
     _write_tables(args, {"history": frame})
-    return {"runs": store.history(fund=config["portfolio"]["name"]), "flags": flags}, 0
+    runs = [{k: v for k, v in rec.to_dict().items() if k not in ("run", "config_text")}
+            for rec in store.history(fund=config["portfolio"]["name"])]
+    table = frame.set_index("run_id").to_dict(orient="index") if len(frame) else {}
+    return {"runs": runs, "side_by_side": {str(k): v for k, v in table.items()},
+            "flags": flags.to_dict(orient="records")}, 0
 
 
 def cmd_validate(args):

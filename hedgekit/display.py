@@ -195,8 +195,8 @@ def show_states(con: Console, res) -> None:
     rows = [[a] + [fmt(res.raw_corr.loc[a, b], 2) for b in v] + [fmt(sd[a], 5)] for a in v]
     con.print(table("Raw innovations: correlation (and sd)", ["", *v, "sd"], rows, plain=plain))
     rows = [[a] + [fmt(res.orthogonal_corr.loc[a, b], 2) for b in v] for a in v]
-    con.print(table("Orthogonal innovations (Gram-Schmidt in this order, each scaled to the market sd): correlation",
-                    ["", *v], rows, plain=plain))
+    con.print(table("Orthogonal innovations: correlation", ["", *v], rows, plain=plain,
+                    caption="Gram-Schmidt in the order above, each scaled to the market innovation's sd."))
     rows = [[a] + [fmt(res.transform.loc[a, b], 3) for b in v] for a in v]
     con.print(table("Transform M (orthogonal = M x raw)", ["", *v], rows, plain=plain))
 
@@ -340,15 +340,14 @@ def show_backtest(con: Console, res, config) -> None:
         ["realised tracking error (a year)", fmt(d.realised_tracking_error, 2, pct=True)],
         ["predicted tracking error (a year)", fmt(d.predicted_tracking_error, 2, pct=True)],
         ["turnover (a year, of NAV)", fmt(d.turnover_annual, 1, pct=True)],
-        ["costs paid (a year, of NAV)", fmt(d.costs_paid_annual, 3, pct=True)],
+        ["costs paid (bp of NAV a year)", fmt(d.costs_paid_annual * 1e4, 2)],
     ], plain=plain))
     f = list(d.factors)
-    rows = []
-    for side in ("unhedged", "hedged"):
-        iv = d.interval(side)
-        rows.append([side] + [f"{fmt(iv.loc['beta', x], 2)} [{fmt(iv.loc['lo', x], 2)}, {fmt(iv.loc['hi', x], 2)}]"
-                              for x in f])
-    con.print(table("Realised exposure to out-of-sample innovations (95 %)", ["book", *f], rows, plain=plain))
+    iu, ih = d.interval("unhedged"), d.interval("hedged")
+    rows = [[x, fmt(iu.loc["beta", x], 3), f"[{fmt(iu.loc['lo', x], 3)}, {fmt(iu.loc['hi', x], 3)}]",
+             fmt(ih.loc["beta", x], 3), f"[{fmt(ih.loc['lo', x], 3)}, {fmt(ih.loc['hi', x], 3)}]"] for x in f]
+    con.print(table("Realised exposure to the out-of-sample innovations", ["factor", "unhedged", "95 %", "hedged",
+                                                                           "95 %"], rows, plain=plain))
 
 
 def show_history(con: Console, frame, flags) -> None:

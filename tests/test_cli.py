@@ -1,0 +1,153 @@
+"""End to end through the command line (subprocess and in-process) on the demo scenario."""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from hedgekit.cli import main
+
+from .helpers import demo_copy
+
+CONTRACT = {
+    "states": ["variables", "intercept", "coef", "max_eigen_modulus", "innovations", "transform"],
+    "exposures": ["factors", "portfolio", "portfolio_se", "assets", "instruments", "rolling"],
+    "premia": ["factors", "lambda", "se_fm", "se_nw", "se_shanken", "t_fm", "t_shanken", "r2_cs", "n_periods",
+               "n_skipped", "pricing_error_test"],
+    "hedge": ["status", "positions", "contracts", "exposure_before", "exposure_after", "tracking_error", "cost",
+              "premium_given_up", "unreachable"],
+    "backtest": ["rebalance_dates", "decisions", "effectiveness", "realised_tracking_error",
+                 "predicted_tracking_error"],
+}
+
+
+def _run(args, cwd=None, env=None):
+    full_env = dict(os.environ, **(env or {}))
+    return subprocess.run([sys.executable, "-m", "hedgekit.cli", *args], capture_output=True, text=True,
+                          cwd=cwd, env=full_env, timeout=600)
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("demo")
+    proc = _run(["demo", "--dir", str(folder / "d"), "--json", "--backtest"])
+    return folder / "d", proc
+
+
+def test_demo_whole_job_json_has_every_contract_key(demo_run):
+    folder, proc = demo_run
+    assert proc.returncode == 0, proc.stderr
+    payload = json.loads(proc.stdout)  # stdout is one JSON object and nothing else
+    for stage, keys in CONTRACT.items():
+        for key in keys:
+            assert key in payload[stage], f"{stage}.{key} missing"
+    st = payload["states"]
+    assert st["variables"] == ["mkt", "dy", "term", "def", "rf"]
+    assert set(st["coef"]["mkt"]) == {f"{v}.L1" for v in st["variables"]}
+    assert set(st["innovations"]) >= {"dates", "raw", "orthogonal"}
+    assert len(st["innovations"]["dates"]) == len(st["innovations"]["orthogonal"]["term"])
+    ex = payload["exposures"]
+    assert ex["factors"] == ["mkt", "dy", "term", "def", "rf"]
+    assert len(ex["rolling"]["dates"]) == len(ex["rolling"]["portfolio"]["term"])
+    assert ex["rolling"]["portfolio"]["term"][0] is None  # too few months in the first window
+    pr = payload["premia"]
+    assert pr["factors"][0] == "const"
+    assert set(pr["pricing_error_test"]) >= {"stat", "df", "pvalue"}
+    h = payload["hedge"]
+    assert h["status"] == "optimal"
+    assert all(isinstance(v, int) for v in h["contracts"].values())
+    for f in ("term", "def"):
+        assert abs(h["exposure_after"][f]) < 1e-6
+    assert 0.95 - 1e-6 <= h["exposure_after"]["mkt"] <= 1.05 + 1e-6
+    bt = payload["backtest"]
+    assert len(bt["rebalance_dates"]) == len(bt["decisions"]) > 10
+    assert payload["cautions"] and "not investment advice" in payload["cautions"][0]
+    assert "report" in payload and Path(payload["report"]["html"]).exists()
+
+
+def test_demo_report_and_store_exist(demo_run):
+    folder, proc = demo_run
+    out = folder / "hedgekit_output"
+    html = (out / "report.html").read_text()
+    assert "data:image/png;base64," in html
+    assert (out / "report.md").exists()
+    assert (folder / "hedgekit_runs.sqlite").exists()
+
+
+def test_terminal_output_plain_when_piped(tmp_path):
+    cfg = demo_copy(tmp_path)
+    proc = _run(["hedge", str(cfg)], env={"NO_COLOR": "1"})
+    assert proc.returncode == 0, proc.stderr
+    assert "\x1b[" not in proc.stdout  # no colour codes
+    assert "Hedge ticket" in proc.stdout and "not investment advice" in proc.stdout
+    assert max(len(line) for line in proc.stdout.splitlines()) <= 100
+
+
+@pytest.mark.parametrize("command", ["states", "exposures", "premia", "hedge", "stress"])
+def test_stage_commands_json_and_out(command, tmp_path, capsys):
+    cfg = demo_copy(tmp_path)
+    out = tmp_path / "tables"
+    code = main([command, str(cfg), "--json", "--out", str(out)])
+    captured = capsys.readouterr()
+    assert code == 0, captured.err
+    payload = json.loads(captured.out)
+    for key in CONTRACT.get(command, []):
+        assert key in payload
+    csvs = list(out.glob("*.csv"))
+    assert csvs and all(p.stat().st_size > 0 for p in csvs)
+    assert not list(out.glob(".*")), "no temporary files left behind"
+
+
+def test_unreachable_hedge_exits_3_and_names_factor(tmp_path, capsys):
+    cfg = demo_copy(tmp_path)
+    text = cfg.read_text().replace('neutralise = ["term", "def"]', 'neutralise = ["term", "def"]\n'
+                                   'exclude = ["rate_future_2y", "rate_future_10y", "value_basket", '
+                                   '"quality_basket", "credit_index_ig", "credit_index_hy"]')
+    cfg.write_text(text)
+    code = main(["hedge", str(cfg), "--json"])
+    captured = capsys.readouterr()
+    assert code == 3
+    payload = json.loads(captured.out)
+    assert payload["status"] == "unreachable"
+    assert set(payload["unreachable"]) & {"term", "def"}
+    assert "not reachable" in captured.err
+
+
+def test_version_and_help():
+    proc = _run(["--version"])
+    assert proc.returncode == 0 and "hedgekit" in proc.stdout
+    proc = _run(["--help"])
+    assert proc.returncode == 0
+    for command in ("demo", "run", "states", "exposures", "premia", "hedge", "stress", "backtest", "report",
+                    "history"):
+        assert command in proc.stdout
+    assert "not investment advice" in proc.stdout
+
+
+def test_history_after_two_runs(tmp_path, capsys):
+    cfg = demo_copy(tmp_path)
+    assert main(["run", str(cfg), "--json"]) == 0
+    first = json.loads(capsys.readouterr().out)
+    assert main(["run", str(cfg), "--json"]) == 0
+    second = json.loads(capsys.readouterr().out)
+    assert first["run_id"] == second["run_id"], "identical inputs are recognised, not stored twice"
+    assert main(["history", str(cfg), "--json"]) == 0
+    hist = json.loads(capsys.readouterr().out)
+    assert len(hist["runs"]) == 1
+
+
+def test_internal_error_exit_1_without_traceback(tmp_path, capsys, monkeypatch):
+    cfg = demo_copy(tmp_path)
+    import hedgekit.pipeline as pipeline
+
+    def boom(*a, **k):
+        raise RuntimeError("simulated failure")
+    monkeypatch.setattr(pipeline, "run_exposures", boom)
+    code = main(["exposures", str(cfg)])
+    err = capsys.readouterr().err
+    assert code == 1 and "simulated failure" in err and "Traceback" not in err
