@@ -89,7 +89,8 @@ def exposure_se_after(exposures: Mapping, hedge: Mapping) -> tuple[dict[str, flo
     if own:
         return {f: _num(own.get(f)) for f in factors}, "as reported by the hedge stage"
     book_se = _values(exposures.get("portfolio_se"), factors)
-    inst_se = exposures.get("instruments_se") or exposures.get("instrument_se")
+    inst_se = (exposures.get("instruments_se_hac") or exposures.get("instruments_se")
+               or exposures.get("instrument_se"))
     positions = hedge.get("positions") or {}
     if inst_se and positions:
         var = book_se ** 2
@@ -202,7 +203,7 @@ def stress_chart(rows: Sequence[Mapping], *, before_key: str, after_key: str,
     ax.set_axisbelow(True)
     ax.axvline(0.0, color=INK, linewidth=0.8)
     ax.set_xlabel(f"scenario P&L{(' (' + unit + ')') if unit else ''}", color=INK, fontsize=8.5)
-    ax.legend(frameon=False, fontsize=8, loc="best")
+    ax.legend(frameon=False, fontsize=8, ncol=2, loc="lower center", bbox_to_anchor=(0.5, 1.0))
     return _png(fig)
 
 

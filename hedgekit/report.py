@@ -141,6 +141,8 @@ def fmt(x: Any, digits: int = 3, *, plus: bool = False) -> str:
         return DASH
     if math.isinf(v):
         return "inf" if v > 0 else MINUS + "inf"
+    if round(v, digits) == 0:
+        v = 0.0  # no "-0.000"
     return _signed(f"{v:{'+' if plus else ''},.{digits}f}")
 
 
@@ -226,16 +228,24 @@ def _summary(run: Mapping) -> Section:
     exposures = run.get("exposures") or {}
     hedge = run.get("hedge") or {}
     stress = run.get("stress") or {}
+    periods = meta.get("periods")
+    unit = "quarters" if _periods_per_year(meta) == 4 else "months"
     tiles = [
         ("Book", str(meta.get("fund") or "unnamed book")),
         ("Net asset value", money(meta.get("nav"), ccy, short=True)),
-        ("Sample", f"{meta.get('sample_start', DASH)} to {meta.get('sample_end', DASH)}"),
-        ("Frequency", str(meta.get("frequency") or "monthly")),
+        ("Sample", f"{meta.get('sample_start', DASH)} to {meta.get('sample_end', DASH)}"
+                   + (f" ({periods} {unit})" if periods else "")),
     ]
     if hedge:
         tiles.append(("Overlay", str(hedge.get("status") or DASH)))
         if hedge.get("tracking_error") is not None:
             tiles.append(("Tracking error, a year", pct(hedge.get("tracking_error"))))
+    backtest = run.get("backtest") or {}
+    if backtest.get("effectiveness_neutralised") is not None:
+        tiles.append(("Walk-forward effectiveness, targeted factors",
+                      fmt(backtest.get("effectiveness_neutralised"), 3)))
+    if len(tiles) < 6:
+        tiles.append(("Frequency", str(meta.get("frequency") or "monthly")))
     blocks: list[Block] = [Tiles(tuple(tiles))]
 
     factors = _factors(run)
@@ -271,8 +281,11 @@ def _significance(p: float | None) -> str:
 
 
 def _se_note(exposures: Mapping) -> str:
-    if exposures.get("portfolio_hac_se"):
-        return "t-statistics use Newey-West (HAC) standard errors; p-values from the normal approximation."
+    if exposures.get("portfolio_hac_se") or exposures.get("hac_lags") is not None:
+        lags = exposures.get("hac_lags")
+        return ("t-statistics use Newey-West (HAC) standard errors"
+                + (f" with {lags} lags" if lags is not None else "")
+                + "; p-values from the normal approximation.")
     return "t-statistics use the exposure stage's standard errors; p-values from the normal approximation."
 
 
@@ -343,6 +356,12 @@ def _scenario_label(row: Mapping) -> str:
     return f"{name} ({reading})" if reading else name
 
 
+def _pnl_cell(ret: float | None, ccy_amount: float | None) -> str:
+    if ret is None:
+        return DASH
+    return pct(ret) + (f" ({money(ccy_amount, short=True)})" if ccy_amount is not None else "")
+
+
 def _worst_scenario(stress: Mapping, ccy: str) -> str | None:
     rows = [r for r in (stress.get("scenarios") or []) if _scenario_pnl(r, "unhedged")[0] is not None]
     if not rows:
@@ -399,9 +418,13 @@ def _exposure_section(run: Mapping) -> Section | None:
                              "orthogonal factor shares the market innovation's standard deviation."))
     assets = exposures.get("assets") or {}
     if assets:
-        rows = tuple((str(a), *(fmt(_get(v, f)) for f in factors)) for a, v in assets.items())
-        blocks.append(Table(("Asset", *factors), rows, caption="Test-asset betas",
-                            numeric=(False,) + (True,) * len(factors)))
+        held = exposures.get("holdings") or {}
+        weight = (lambda a: pct(held.get(a), 1) if held.get(a) is not None else "") if held else None
+        rows = tuple((str(a), *(fmt(_get(v, f)) for f in factors),
+                      *((weight(a),) if weight else ())) for a, v in assets.items())
+        blocks.append(Table(("Asset", *factors, *(("Held, % of NAV",) if weight else ())), rows,
+                            caption="Test-asset betas",
+                            numeric=(False,) + (True,) * (len(factors) + (1 if weight else 0))))
     inst = exposures.get("instruments") or {}
     if inst:
         rows = tuple((str(a), *(fmt(_get(v, f)) for f in factors)) for a, v in inst.items())
@@ -470,6 +493,10 @@ def _premia_section(run: Mapping) -> Section | None:
                            "Shanken-corrected standard errors."))
     note = ("Premia are per unit of beta. Stars use the Shanken t-statistic: *** p < 0.01, "
             "** p < 0.05, * p < 0.10.")
+    if premia.get("betas_used"):
+        note += f" Betas used: {premia['betas_used']}."
+    if premia.get("nw_lags") is not None:
+        note += f" Newey-West lags: {premia['nw_lags']}."
     if premia.get("shanken_approximate"):
         note += " With rolling betas the Shanken correction is the approximate multiplier form."
     blocks.append(Table(columns, tuple(rows), caption="Fama-MacBeth prices of risk",
@@ -479,10 +506,12 @@ def _premia_section(run: Mapping) -> Section | None:
         facts.append(f"Cross-sectional R\u00b2 on average returns: {fmt(premia.get('r2_cs'), 3)}.")
     if premia.get("n_periods") is not None:
         facts.append(f"Months used: {premia.get('n_periods')}; skipped: {premia.get('n_skipped', 0)}.")
-    test = premia.get("pricing_error_test") or {}
-    if test:
-        facts.append(f"Pricing errors jointly zero: \u03c7\u00b2 = {fmt(test.get('stat'), 2)} on "
-                     f"{test.get('df', DASH)} degrees of freedom, p = {fmt(test.get('pvalue'), 3)}.")
+    for key, label in (("pricing_error_test", "Pricing errors jointly zero"),
+                       ("pricing_error_test_shanken", "The same test with the Shanken adjustment")):
+        test = premia.get(key) or {}
+        if test:
+            facts.append(f"{label}: \u03c7\u00b2 = {fmt(test.get('stat'), 2)} on "
+                         f"{test.get('df', DASH)} degrees of freedom, p = {fmt(test.get('pvalue'), 3)}.")
     grs = premia.get("grs") or {}
     if isinstance(grs, Mapping) and grs:
         facts.append(f"GRS test: F = {fmt(grs.get('stat'), 2)}, p = {fmt(grs.get('pvalue'), 3)}.")
@@ -519,7 +548,9 @@ def _hedge_section(run: Mapping) -> Section | None:
     if hedge.get("message"):
         blocks.append(Para(str(hedge["message"]), "note"))
     ticket = hedge.get("ticket")
-    if isinstance(ticket, list) and ticket and isinstance(ticket[0], Mapping):
+    if isinstance(ticket, Mapping) and ticket and all(isinstance(v, Mapping) for v in ticket.values()):
+        blocks.append(_ticket_table(ticket, ccy))
+    elif isinstance(ticket, list) and ticket and isinstance(ticket[0], Mapping):
         keys = list(dict.fromkeys(k for row in ticket for k in row))
         rows = tuple(tuple(_cell(row.get(k), k, ccy) for k in keys) for row in ticket)
         numeric = tuple(k not in ("instrument", "side") and not isinstance(ticket[0].get(k), str)
@@ -580,6 +611,36 @@ def _hedge_section(run: Mapping) -> Section | None:
     return Section("hedge", "The overlay and its ticket", tuple(blocks))
 
 
+def _ticket_table(ticket: Mapping[str, Mapping], ccy: str) -> Table:
+    """The hedge stage's ticket ({instrument: {weight, contracts, contract_value, ...}})."""
+    rows = []
+    has_current = any(_num(r.get("current")) for r in ticket.values())
+    for name, r in ticket.items():
+        w, n = _num(r.get("weight")), _num(r.get("contracts"))
+        trade = _num(r.get("trade"))
+        side_of = trade if trade is not None else w
+        side = DASH if not side_of else "buy" if side_of > 0 else "sell"
+        if r.get("excluded"):
+            side = "excluded"
+        unit = _num(r.get("contract_value"))
+        row = [str(name), side, fmt(w, 4), DASH if n is None else f"{int(n):,}".replace("-", MINUS),
+               money(unit), money(None if n is None or unit is None else n * unit),
+               fmt(r.get("weight_rounded"), 4)]
+        if has_current:
+            row += [fmt(r.get("current"), 4), fmt(trade, 4)]
+        row.append(money(r.get("cost")))
+        rows.append(tuple(row))
+    cols = ["Instrument", "Side", "Weight of NAV", "Contracts", f"Contract value, {ccy}".rstrip(", "),
+            f"Notional in contracts, {ccy}".rstrip(", "), "Weight after rounding"]
+    if has_current:
+        cols += ["Current weight", "Trade"]
+    cols.append(f"Cost, {ccy}".rstrip(", "))
+    return Table(tuple(cols), tuple(rows), caption="Hedge ticket",
+                 numeric=(False, False) + (True,) * (len(cols) - 2),
+                 note="Side is the trade to make; contracts are the weight times NAV over one "
+                      "contract's value (multiplier times price), rounded to whole contracts.")
+
+
 def _targets(meta: Mapping, hedge: Mapping) -> dict[str, str]:
     out: dict[str, str] = {}
     for f in meta.get("neutralise") or []:
@@ -617,23 +678,28 @@ def _stress_section(run: Mapping) -> Section | None:
     for r in scenarios:
         r0, c0 = _scenario_pnl(r, "unhedged")
         r1, c1 = _scenario_pnl(r, "hedged")
-        lo, hi = _get(r, "pnl", "unhedged", "lo"), _get(r, "pnl", "unhedged", "hi")
-        rows.append((_scenario_label(r), str(r.get("description") or ""), pct(r0),
-                     f"[{pct(lo)}, {pct(hi)}]" if lo is not None else DASH, money(c0, short=True),
-                     pct(r1), money(c1, short=True)))
+        lo, hi = _num(_get(r, "pnl", "unhedged", "lo")), _num(_get(r, "pnl", "unhedged", "hi"))
+        held = pct(r0)
+        if r0 is not None and lo is not None and hi is not None:
+            held = f"{fmt(r0 * 100, 2)} \u00b1 {fmt((hi - lo) * 50, 2)} %"
+        name = str(r.get("name") or r.get("scenario") or "scenario")
+        rows.append((str(r.get("description") or name), str(r.get("reading") or DASH), held,
+                     money(c0, short=True), pct(r1), money(c1, short=True)))
         chart_rows.append({"name": _scenario_label(r), "before": r0, "after": r1})
     conf = _num(stress.get("confidence"))
+    level = int(round((conf or 0.95) * 100))
+    cur = f", {ccy}" if ccy else ", currency"
     blocks: list[Block] = [
         Plot("stress", plots.stress_chart(chart_rows, before_key="before", after_key="after",
                                           scale=100.0, unit="% of NAV"),
              "Scenario P&L of the book as held and with the overlay."),
-        Table(("Scenario", "Surprise", "As held", f"{int(round((conf or 0.95) * 100))} % interval",
-               f"As held, {ccy}".strip(", "), "With the overlay", f"With the overlay, {ccy}".strip(", ")),
+        Table(("Scenario", "Reading", "As held, % of NAV", f"As held{cur}",
+               "With the overlay, % of NAV", f"With the overlay{cur}"),
               tuple(rows), caption="Stress scenarios",
-              numeric=(False, False, True, True, True, True, True),
-              note="'isolated': the other state variables do not move; 'comove': they move by their "
-                   "typical co-movement with the named ones. Intervals reflect estimation error of "
-                   "the betas only."),
+              numeric=(False, False, True, True, True, True),
+              note=f"\u00b1: half-width of the {level} % interval from the estimation error of the "
+                   "betas only. 'isolated': the other state variables do not move; 'comove': they "
+                   "move by their typical co-movement with the named ones."),
     ]
     replay = _get(stress, "replay", "quarters") or _get(stress, "replay", "months") or []
     book_rows = [r for r in replay if isinstance(r, Mapping) and r.get("ranked_by") == "book"]
@@ -648,53 +714,90 @@ def _stress_section(run: Mapping) -> Section | None:
     return Section("stress", "Stress scenarios", tuple(blocks))
 
 
-_BACKTEST_SERIES = ("pnl_hedged", "pnl_unhedged", "hedged", "unhedged")
+# Walk-forward series drawn, in this order of preference: the book as held and the book
+# with the overlay net of costs (the backtest stage's names first, then common aliases).
+_BACKTEST_SERIES = ((("book", "unhedged"), "book as held"),
+                    (("hedged_net", "hedged"), "with the overlay, net of costs"))
 
 
 def _backtest_series(backtest: Mapping) -> tuple[list[str], dict[str, list]]:
-    """The walk-forward P&L series to draw: a dict with "dates" and number lists."""
-    candidates = [backtest.get("series"), backtest.get("pnl"), backtest]
-    for block in candidates:
-        if not isinstance(block, Mapping) or not block.get("dates"):
-            continue
-        dates = list(block["dates"])
-        found = {k: list(v) for k, v in block.items()
-                 if k != "dates" and isinstance(v, list) and len(v) == len(dates)
-                 and any(_num(x) is not None for x in v)}
-        preferred = {k: found[k] for k in _BACKTEST_SERIES if k in found}
-        if preferred or found:
-            return dates, preferred or found
-    return [], {}
+    """The walk-forward return series to draw: dates and {label: values}."""
+    block = backtest.get("series")
+    if not isinstance(block, Mapping) or not block.get("dates"):
+        return [], {}
+    dates = list(block["dates"])
+    out: dict[str, list] = {}
+    for keys, label in _BACKTEST_SERIES:
+        for key in keys:
+            values = block.get(key)
+            if isinstance(values, list) and len(values) == len(dates) and any(
+                    _num(x) is not None for x in values):
+                out[label if key != "hedged" else "with the overlay"] = values
+                break
+    return dates, out
 
 
 def _backtest_section(run: Mapping) -> Section | None:
     backtest = run.get("backtest") or {}
     if not backtest:
         return None
+    ccy = str((run.get("meta") or {}).get("currency") or "")
     blocks: list[Block] = []
     dates, series = _backtest_series(backtest)
     if dates and series:
-        blocks.append(Plot("backtest", plots.backtest_chart(dates, series),
-                           "Walk-forward check: cumulative state-driven return of the book with and "
-                           "without the overlay, decisions made with data up to each rebalance only."))
-    facts = []
+        blocks.append(Plot("backtest", plots.backtest_chart(dates, series,
+                                                            ylabel="cumulative excess return"),
+                           "Walk-forward check: cumulative excess return (sum of monthly returns) of "
+                           "the book as held and with the overlay, each decision made with data up "
+                           "to its rebalance date only."))
+    facts: list[tuple[str, str]] = []
     if backtest.get("effectiveness") is not None:
-        facts.append(("Hedge effectiveness (1 \u2212 hedged/unhedged variance)",
-                      fmt(backtest.get("effectiveness"), 3)))
+        facts.append(("Hedge effectiveness, all factors (1 \u2212 hedged/unhedged variance of "
+                      "state-driven P&L)", fmt(backtest.get("effectiveness"), 3)))
+    if backtest.get("effectiveness_neutralised") is not None:
+        names = ", ".join(str(f) for f in backtest.get("neutralised") or []) or "neutralised factors"
+        facts.append((f"Hedge effectiveness, {names}", fmt(backtest.get("effectiveness_neutralised"), 3)))
     for key, label in (("realised_tracking_error", "Realised tracking error, a year"),
                        ("predicted_tracking_error", "Predicted tracking error, a year")):
         if backtest.get(key) is not None:
             facts.append((label, pct(backtest.get(key))))
-    for key, label in (("turnover", "Turnover"), ("costs", "Costs"), ("cost", "Costs")):
-        v = backtest.get(key)
-        if isinstance(v, int | float):
-            facts.append((label, fmt(v, 4)))
+    if backtest.get("turnover_annual") is not None:
+        facts.append(("Turnover a year (gross, fraction of NAV)", fmt(backtest.get("turnover_annual"), 3)))
+    elif isinstance(backtest.get("turnover"), int | float):
+        facts.append(("Turnover (gross, fraction of NAV)", fmt(backtest.get("turnover"), 3)))
+    if backtest.get("costs_paid_annual") is not None:
+        facts.append(("Costs paid a year", bp(backtest.get("costs_paid_annual"))))
+    if backtest.get("costs_paid_currency") is not None:
+        facts.append(("Costs paid over the test", money(backtest.get("costs_paid_currency"), ccy)))
     rebal = backtest.get("rebalance_dates") or []
     if rebal:
         facts.append(("Rebalances", f"{len(rebal)} ({rebal[0]} to {rebal[-1]})"))
+    if backtest.get("n_months") is not None:
+        facts.append(("Months out of sample", str(backtest.get("n_months"))))
     if facts:
         blocks.append(Table(("Measure", "Value"), tuple(facts), caption="Walk-forward summary",
                             numeric=(False, True)))
+    realised = backtest.get("realised_exposure") or {}
+    if realised.get("unhedged") or realised.get("hedged"):
+        se = backtest.get("realised_exposure_se") or {}
+        factors = list(backtest.get("factors") or realised.get("unhedged") or realised.get("hedged"))
+        rows = []
+        for f in factors:
+            u, h = _num(_get(realised, "unhedged", f)), _num(_get(realised, "hedged", f))
+            rows.append((f, fmt(u), _interval(u, _num(_get(se, "unhedged", f))), fmt(h),
+                         _interval(h, _num(_get(se, "hedged", f)))))
+        blocks.append(Table(("Factor", "As held", "95 % interval", "With the overlay", "95 % interval"),
+                            tuple(rows), caption="Realised exposures out of sample",
+                            numeric=(False, True, True, True, True),
+                            note="Betas of the realised returns on the next period's real-time "
+                                 "innovations."))
+    by_factor = backtest.get("effectiveness_by_factor") or {}
+    if by_factor:
+        blocks.append(Table(("Factor", "Effectiveness"),
+                            tuple((str(f), fmt(v, 3)) for f, v in by_factor.items()),
+                            caption="Effectiveness by factor", numeric=(False, True),
+                            note="Negative where the overlay adds exposure to a factor it does "
+                                 "not target."))
     decisions = backtest.get("decisions") or {}
     if decisions:
         last = list(decisions)[-4:]
@@ -710,8 +813,10 @@ def _backtest_section(run: Mapping) -> Section | None:
 
 def _stage_warnings(run: Mapping) -> list[str]:
     out = [str(w) for w in run.get("warnings") or []]
+    seen = set(out)
     for stage in ("states", "exposures", "premia", "hedge", "stress", "backtest"):
-        out += [f"{stage}: {w}" for w in _get(run, stage, "warnings", default=None) or []]
+        out += [f"{stage}: {w}" for w in _get(run, stage, "warnings", default=None) or []
+                if str(w) not in seen]
     return list(dict.fromkeys(out))
 
 
@@ -799,6 +904,22 @@ CAUTIONS = (
 )
 
 
+# Words that mark a stage's caution as one of the three standing ones above (advice and
+# governance; sample dependence and regimes; derivative risks), so each is said once.
+_CAUTION_TOPICS = (("investment advice",), ("regime",), ("counterparty",))
+
+
+def _merge_cautions(extra: Iterable[str]) -> tuple[str, ...]:
+    """The standing cautions, then the stages' own cautions on other topics."""
+    out = list(CAUTIONS)
+    for text in extra:
+        low = text.lower()
+        if text in out or any(any(w in low for w in words) for words in _CAUTION_TOPICS):
+            continue
+        out.append(text)
+    return tuple(out)
+
+
 def build_document(run: Mapping) -> Document:
     """The report's content from the run dictionary (sections only where data are present)."""
     meta = run.get("meta") or {}
@@ -812,8 +933,7 @@ def build_document(run: Mapping) -> Document:
     sections.append(Section("methods", "Methods and sources", (Bullets(METHODS),)))
     extra = [str(c) for c in (run.get("cautions") or [])]
     extra += [str(c) for c in (_get(run, "hedge", "cautions", default=None) or [])]
-    sections.append(Section("cautions", "Cautions",
-                            (Bullets(tuple(dict.fromkeys(CAUTIONS + tuple(extra)))),)))
+    sections.append(Section("cautions", "Cautions", (Bullets(_merge_cautions(extra)),)))
     return Document(title=fund, subtitle=subtitle, sections=tuple(sections))
 
 

@@ -139,7 +139,7 @@ class RunStore:
         version = str(meta.get("version") or "")
         fp = fingerprint(config_text, hashes, version)
         results = json.dumps(_clean(dict(run)), sort_keys=True, allow_nan=False)
-        report = None if report_path is None else str(report_path)
+        report = str(report_path) if report_path not in (None, "") else None
         conn = self._connect()
         try:
             with conn:  # one transaction: commits on success, rolls back on any error

@@ -319,3 +319,42 @@ def test_bad_format_is_an_input_error(tmp_path: Path) -> None:
         report.write_report(demo_run(), tmp_path, formats=("pdf",))
     with pytest.raises(InputError, match="file name"):
         report.write_report(demo_run(), tmp_path, name="../x")
+
+
+DEMO_CONFIG = Path(__file__).resolve().parents[1] / "demo_portfolios" / "larkspur.toml"
+
+
+def test_real_demo_run_report_and_store(tmp_path: Path) -> None:
+    """The lead's pipeline on the bundled demo: report from its run dict, then the store."""
+    from hedgekit.config import load_config
+    from hedgekit.pipeline import run_all
+    from hedgekit.store import RunStore
+
+    config = load_config(DEMO_CONFIG)
+    run = json.loads(json.dumps(run_all(config, backtest=True).to_dict(), allow_nan=False))
+    paths = report.write_report(run, tmp_path / "out")
+    text = paths["html"].read_text(encoding="utf-8")
+    doc = report.build_document(run)
+    assert [s.key for s in doc.sections] == ["summary", "exposures", "rolling", "premia", "hedge",
+                                             "stress", "backtest", "diagnostics", "methods", "cautions"]
+    assert "<script" not in text.lower() and not re.search(r"(?:src|href)\s*=\s*\"?https?:", text)
+    assert len(re.findall(r'<img src="data:image/png;base64,', text)) == 5
+    # the summary's exposures are the exposure stage's numbers, the after column the hedge's
+    table = next(b for b in doc.sections[0].blocks if isinstance(b, report.Table))
+    for row in table.rows:
+        assert row[1] == report.fmt(run["exposures"]["portfolio"][row[0]])
+        assert row[4] == report.fmt(run["hedge"]["exposure_after"][row[0]])
+    for name, leg in run["hedge"]["ticket"].items():
+        assert f"{abs(leg['contracts']):,}" in text and name.replace("_", "_<wbr>") in text
+    # every standing caution once, and the stages' duplicates of them folded in
+    cautions = next(s for s in doc.sections if s.key == "cautions").blocks[0].items
+    assert sum("investment advice" in c for c in cautions) == 1
+    store = RunStore(tmp_path / "runs.sqlite")
+    first = store.record(run, config.text, paths["html"])
+    rerun = copy.deepcopy(run)
+    rerun["meta"]["run_at"] = "2030-01-01T00:00:00+00:00"
+    assert store.record(rerun, config.text, paths["html"]) == first
+    [rec] = store.history(fund=run["meta"]["fund"])
+    assert rec.run["hedge"]["positions"] == run["hedge"]["positions"]
+    frame = store.history_frame()
+    assert frame.loc[0, "exposure:term"] == run["exposures"]["portfolio"]["term"]
