@@ -75,6 +75,17 @@ _ACTIVE_TOL = 1e-6              # a limit "binds" when the solution sits this cl
 _REACH_TOL = 1e-7               # slack below this (beta units) counts as reached
 
 
+_INSTALLED: list[tuple[str, ...]] = []
+
+
+def _installed_solvers() -> tuple[str, ...]:
+    """SOLVERS that are installed, looked up once (cvxpy's check imports every solver)."""
+    if not _INSTALLED:
+        have = set(cp.installed_solvers())
+        _INSTALLED.append(tuple(name for name in SOLVERS if name in have))
+    return _INSTALLED[0]
+
+
 class OverlaySolveError(HedgekitError):
     """No installed solver returned an optimal solution (exit code 1)."""
 
@@ -208,9 +219,7 @@ class HedgeSpec:
 def _sheet_frame(sheet: pd.DataFrame) -> pd.DataFrame:
     if "instrument" in sheet.columns:
         sheet = sheet.set_index("instrument")
-    sheet = sheet.copy()
-    sheet.index = sheet.index.astype(str)
-    return sheet
+    return _labels(sheet)
 
 
 # --------------------------------------------------------------------------- the program
@@ -347,17 +356,18 @@ class OverlayProblem:
     # -- solving
     def set_values(self, values: Mapping[str, np.ndarray | float]) -> None:
         for name, value in values.items():
+            param = self.params[name]
+            if param.value is not None and np.array_equal(param.value, value):
+                continue                # unchanged: skip cvxpy's re-validation
             try:
-                self.params[name].value = value
+                param.value = value
             except ValueError as exc:
                 raise ValueError(f"{name}: {exc}") from exc
 
     def _run(self, problem: cp.Problem) -> tuple[str, str]:
         """Solve with CLARABEL, then the other solvers; return (outcome, solver name)."""
         last = ""
-        for solver in SOLVERS:
-            if solver not in cp.installed_solvers():
-                continue
+        for solver in _installed_solvers():
             if self.structure.robust and solver in _CONIC_ONLY:
                 continue
             last = solver
@@ -419,6 +429,24 @@ def _structure(active: list[str], spec: HedgeSpec, lo: np.ndarray, hi: np.ndarra
         has_cap=spec.max_gross is not None,
         robust=spec.robust,
     )
+
+
+def _risk_factor(sigma: np.ndarray) -> np.ndarray:
+    """F with F'F = Sigma: Cholesky (L') when positive definite, else the eigen square root.
+
+    Raises InputError when Sigma has an eigenvalue below -1e-10 x its largest.
+    """
+    sym = 0.5 * (sigma + sigma.T)
+    if sym.size == 0:
+        return sym
+    try:
+        return np.linalg.cholesky(sym).T
+    except np.linalg.LinAlgError:
+        w, v = np.linalg.eigh(sym)
+    if w.min() < -1e-10 * max(w.max(), 1e-300):
+        raise InputError("instrument covariance is not positive semi-definite",
+                         column="covariance", fix="use a listwise sample or method='ledoit-wolf'")
+    return np.sqrt(np.clip(w, 0.0, None))[:, None] * v.T
 
 
 _CACHE: OrderedDict[_Structure, OverlayProblem] = OrderedDict()
@@ -567,12 +595,11 @@ def _limits(active: list[str], spec: HedgeSpec, sheet: pd.DataFrame
     """Per active instrument: lower, upper bound (inf = none) and cost as a fraction."""
     def column(name: str, override: Mapping[str, float] | None, default: float) -> np.ndarray:
         if override is not None:
-            vals = pd.Series({k: float(v) for k, v in override.items()}, dtype=float)
+            out = np.array([float(override.get(a, np.nan)) for a in active], dtype=float)
         elif name in sheet.columns:
-            vals = pd.to_numeric(sheet[name], errors="coerce").astype(float)
+            out = pd.to_numeric(_take(sheet[name], active), errors="coerce").to_numpy(dtype=float)
         else:
-            vals = pd.Series(dtype=float)
-        out = vals.reindex(active).to_numpy(dtype=float)
+            out = np.full(len(active), np.nan)
         return np.where(np.isfinite(out), out, default)
 
     lo = column("min_weight", spec.min_weight, -np.inf)
@@ -613,10 +640,33 @@ def _check_names(spec: HedgeSpec, factors: list[str], instruments: list[str]) ->
             raise _names_error(f"instrument(s) in {name}", bad, instruments, name)
 
 
+def _labels(obj: pd.Series | pd.DataFrame) -> pd.Series | pd.DataFrame:
+    """The object with string labels (a relabelled copy only when some label is not str)."""
+    if not all(isinstance(i, str) for i in obj.index):
+        obj = obj.set_axis([str(i) for i in obj.index], axis=0)
+    if isinstance(obj, pd.DataFrame) and not all(isinstance(c, str) for c in obj.columns):
+        obj = obj.set_axis([str(c) for c in obj.columns], axis=1)
+    return obj
+
+
+def _take(obj: pd.Series | pd.DataFrame, rows: list[str], cols: list[str] | None = None
+          ) -> pd.Series | pd.DataFrame:
+    """obj on exactly these row (and column) labels; no reindexing when already in order."""
+    obj = _labels(obj)
+    if list(obj.index) != rows:
+        obj = obj.reindex(rows)
+    if cols is not None and list(obj.columns) != cols:
+        obj = obj.reindex(columns=cols)
+    return obj
+
+
 def _numeric(frame: pd.DataFrame | pd.Series, what: str) -> np.ndarray:
-    values = frame.apply(pd.to_numeric, errors="coerce") if isinstance(frame, pd.DataFrame) \
-        else pd.to_numeric(frame, errors="coerce")
-    arr = np.asarray(values, dtype=float)
+    try:
+        arr = frame.to_numpy(dtype=float)
+    except (TypeError, ValueError):     # text in a numeric field: report it as missing
+        values = frame.apply(pd.to_numeric, errors="coerce") \
+            if isinstance(frame, pd.DataFrame) else pd.to_numeric(frame, errors="coerce")
+        arr = np.asarray(values, dtype=float)
     if not np.all(np.isfinite(arr)):
         raise InputError(f"{what} has missing or non-numeric values",
                          fix=f"supply a number for every entry of {what}")
@@ -653,8 +703,7 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
                          fix="set [portfolio] nav to the fund's net asset value")
     instruments = [str(i) for i in instrument_betas.index]
     factors = [str(f) for f in instrument_betas.columns]
-    inst_b = instrument_betas.copy()
-    inst_b.index, inst_b.columns = instruments, factors
+    inst_b = _take(instrument_betas, instruments, factors)
     _check_names(spec, factors, instruments)
 
     sheet = _sheet_frame(sheet)
@@ -667,56 +716,45 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
         if col not in sheet.columns:
             raise InputError(f"the instrument sheet has no '{col}' column", file="instrument_sheet",
                              column=col, fix=f"columns needed: {', '.join(SHEET_COLUMNS)}")
-    unit = _numeric(sheet.loc[instruments, "multiplier"], "multiplier") * \
-        _numeric(sheet.loc[instruments, "price"], "price")
+    sheet_h = _take(sheet, instruments)
+    unit = _numeric(sheet_h["multiplier"], "multiplier") * _numeric(sheet_h["price"], "price")
     if np.any(unit <= 0):
         bad = [i for i, u in zip(instruments, unit, strict=True) if u <= 0]
         raise InputError(f"price x multiplier is not positive for {bad}", file="instrument_sheet",
                          column="price", fix="prices and multipliers must be positive")
 
-    book_b = pd.Series(book_betas).copy()
-    book_b.index = book_b.index.astype(str)
+    book_b = _labels(pd.Series(book_betas))
     lost = [f for f in factors if f not in book_b.index]
     if lost:
         raise InputError(f"book betas lack factor(s) {lost}", column="book_betas",
                          fix="estimate the book's exposure on the instruments' factors")
-    b_p = _numeric(book_b.reindex(factors), "book betas")
+    b_p = _numeric(_take(book_b, factors), "book betas")
     B_all = _numeric(inst_b, "instrument betas")          # H x K
 
-    cov = covariance.copy()
-    cov.index, cov.columns = cov.index.astype(str), cov.columns.astype(str)
+    cov = _labels(covariance)
     missing = [i for i in instruments if i not in cov.index or i not in cov.columns]
     if missing:
         raise InputError(f"covariance lacks instrument(s) {missing}", column="covariance",
                          fix="compute it with instrument_covariance on the same instruments")
-    sigma_all = _numeric(cov.loc[instruments, instruments], "instrument covariance")
+    sigma_all = _numeric(_take(cov, instruments, instruments), "instrument covariance")
     if not np.allclose(sigma_all, sigma_all.T, rtol=1e-8, atol=1e-14):
         raise InputError("instrument covariance is not symmetric", column="covariance")
-    evals, evecs = np.linalg.eigh(0.5 * (sigma_all + sigma_all.T))
-    if evals.min() < -1e-10 * max(evals.max(), 1e-300):
-        raise InputError("instrument covariance is not positive semi-definite",
-                         column="covariance", fix="use a listwise sample or method='ledoit-wolf'")
 
     h0_all = np.zeros(len(instruments))
     if current is not None:
-        cur = pd.Series(current).copy()
-        cur.index = cur.index.astype(str)
+        cur = _labels(pd.Series(current))
         bad = [i for i in cur.index if i not in instruments]
         if bad:
             raise _names_error("instrument(s) in current positions", bad, instruments, "current")
-        h0_all = np.nan_to_num(_numeric(cur.reindex(instruments).fillna(0.0), "current"))
+        h0_all = _numeric(_take(cur, instruments).fillna(0.0), "current")
 
     se_p = se_B_all = None
     if book_se is not None or instrument_se is not None:
         if book_se is None or instrument_se is None:
             raise InputError("give both book_se and instrument_se, or neither",
                              fix="pass the standard errors from the exposures stage")
-        bse = pd.Series(book_se).copy()
-        bse.index = bse.index.astype(str)
-        ise = instrument_se.copy()
-        ise.index, ise.columns = ise.index.astype(str), ise.columns.astype(str)
-        se_p = np.abs(_numeric(bse.reindex(factors), "book_se"))
-        se_B_all = np.abs(_numeric(ise.reindex(index=instruments, columns=factors),
+        se_p = np.abs(_numeric(_take(_labels(pd.Series(book_se)), factors), "book_se"))
+        se_B_all = np.abs(_numeric(_take(_labels(instrument_se), instruments, factors),
                                    "instrument_se"))
     if spec.robust and se_p is None:
         raise InputError("the robust overlay needs book_se and instrument_se", column="robust",
@@ -725,12 +763,11 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
     warnings: list[str] = []
     lam = None
     if premia is not None:
-        prem = pd.Series(premia).copy()
-        prem.index = prem.index.astype(str)
+        prem = _labels(pd.Series(premia))
         absent = [f for f in factors if f not in prem.index]
         if absent:
             warnings.append(f"no price of risk for {absent}: their premium counts as zero")
-        lam = np.nan_to_num(pd.to_numeric(prem.reindex(factors), errors="coerce")
+        lam = np.nan_to_num(pd.to_numeric(_take(prem, factors), errors="coerce")
                             .to_numpy(dtype=float))
     if spec.premium_weight > 0 and lam is None:
         raise InputError("premium_weight > 0 needs the prices of risk", column="premium_weight",
@@ -741,15 +778,15 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
         raise InputError("objective 'total' needs book_variance and book_instrument_cov",
                          column="objective", fix="pass them or use objective = 'tracking'")
     if book_variance is not None and book_instrument_cov is not None:
-        bic = pd.Series(book_instrument_cov).copy()
-        bic.index = bic.index.astype(str)
-        c_pH_all = _numeric(bic.reindex(instruments), "book_instrument_cov")
+        c_pH_all = _numeric(_take(_labels(pd.Series(book_instrument_cov)), instruments),
+                            "book_instrument_cov")
 
     # ---- active set and numbers for the program
     excluded = set(spec.exclude)
     act = np.array([i not in excluded for i in instruments])
     active = [i for i in instruments if i not in excluded]
-    lo, hi, cost_frac = _limits(active, spec, sheet)
+    lo_all, hi_all, cost_all = _limits(instruments, spec, sheet)
+    lo, hi, cost_frac = lo_all[act], hi_all[act], cost_all[act]
     structure = _structure(active, spec, lo, hi)
     if not active:
         problem = None                      # nothing to optimise over
@@ -761,8 +798,7 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
 
     z = float(stats.norm.ppf(0.5 + spec.confidence / 2))
     sigma = sigma_all[np.ix_(act, act)]
-    w, v = np.linalg.eigh(0.5 * (sigma + sigma.T))
-    F = np.sqrt(np.clip(w, 0.0, None))[:, None] * v.T        # F'F = Sigma
+    F = _risk_factor(sigma)
     B = B_all[act]                                             # H_act x K
     fidx = {f: k for k, f in enumerate(factors)}
     n_idx = [fidx[f] for f in spec.neutralise]
@@ -894,7 +930,7 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
 
     return _ticket(status=status, instruments=instruments, act=act, h_act=h_act, h0=h0_all,
                    unit=unit, nav=nav, B_all=B_all, b_p=b_p, factors=factors, sigma=sigma_all,
-                   cost_all=_limits(instruments, replace(spec, exclude=()), sheet)[2],
+                   cost_all=cost_all,
                    se_p=se_p, se_B=se_B_all, lam=lam, ppy=periods_per_year, spec=spec,
                    unreachable=tuple(unreachable), remaining=remaining,
                    binding=tuple(dict.fromkeys(binding)), message=message, solver=solver,
