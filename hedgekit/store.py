@@ -224,8 +224,9 @@ class RunStore:
         base = ["run_id", "fund", "run_at", "sample_end"]
         if not rows:
             return pd.DataFrame(columns=base)
-        frame = pd.DataFrame(rows)
-        order = base + [c for c in frame.columns if c not in base]
+        seen = list(dict.fromkeys(k for r in rows for k in r))  # factor order as stored
+        frame = pd.DataFrame(rows, columns=seen)
+        order = base + [c for c in seen if c not in base]
         return frame[order].reset_index(drop=True)
 
     def flag_changes(self, threshold: float = 0.2, *, fund: str | None = None,
