@@ -60,6 +60,10 @@ def _clean(x: Any) -> Any:
         return {str(k): _clean(v) for k, v in x.items()}
     if isinstance(x, list | tuple):
         return [_clean(v) for v in x]
+    if isinstance(x, Path):
+        return str(x)
+    if hasattr(x, "item") and callable(x.item) and not isinstance(x, str | bytes):
+        x = x.item()  # numpy scalars
     if isinstance(x, float) and not math.isfinite(x):
         return None
     return x
@@ -138,7 +142,7 @@ class RunStore:
         hashes = {str(k): str(v) for k, v in (meta.get("input_hashes") or {}).items()}
         version = str(meta.get("version") or "")
         fp = fingerprint(config_text, hashes, version)
-        results = json.dumps(_clean(dict(run)), sort_keys=True, allow_nan=False)
+        results = json.dumps(_clean(dict(run)), allow_nan=False)  # key order kept: factor order
         report = str(report_path) if report_path not in (None, "") else None
         conn = self._connect()
         try:

@@ -50,8 +50,7 @@ def test_round_trip(tmp_path: Path) -> None:
     store = RunStore(tmp_path / "runs.sqlite")
     run = quarter_run("2025-03")
     run_id = store.record(run, CONFIG, tmp_path / "report.html")
-    [rec] = store.history()
-    assert rec.run_id == run_id
+    rec = store.get(run_id)
     assert rec.config_text == CONFIG
     assert rec.input_hashes == run["meta"]["input_hashes"]
     assert rec.version == "0.1.0" and rec.fund == "Test Book" and rec.sample_end == "2025-03"
@@ -59,13 +58,19 @@ def test_round_trip(tmp_path: Path) -> None:
     # the results come back as stored, NaN as None (strict JSON)
     assert rec.run["exposures"] == run["exposures"]
     assert rec.run["premia"]["r2_cs"] is None
+    odd = quarter_run("2025-06")
+    odd["hedge"]["tracking_error"] = np.float32(0.03)  # numpy scalars and paths are stored plainly
+    odd["report"] = {"html": tmp_path / "r.html"}
+    rec2 = store.get(store.record(odd, CONFIG))
+    assert rec2.run["report"]["html"] == str(tmp_path / "r.html")
+    assert rec2.run["hedge"]["tracking_error"] == pytest.approx(0.03)
     assert rec.fingerprint == fingerprint(CONFIG, run["meta"]["input_hashes"], "0.1.0")
     assert json.dumps(rec.to_dict(), allow_nan=False)
     assert store.get(run_id) == rec
     with pytest.raises(InputError, match="no run with id"):
-        store.get(run_id + 1)
-    # a second handle on the same file sees the same record
-    assert RunStore(tmp_path / "runs.sqlite").history()[0] == rec
+        store.get(9999)
+    # a second handle on the same file sees the same records
+    assert RunStore(tmp_path / "runs.sqlite").history() == [rec, rec2]
 
 
 def test_identical_rerun_is_recognised(tmp_path: Path) -> None:
@@ -92,6 +97,7 @@ def test_history_frame_and_limits(tmp_path: Path) -> None:
     frame = store.history_frame(fund="Test Book")
     assert list(frame["sample_end"]) == ["2025-03", "2025-06", "2025-09"]
     assert list(frame.columns[:4]) == ["run_id", "fund", "run_at", "sample_end"]
+    assert [c for c in frame.columns if c.startswith("exposure:")] == [f"exposure:{f}" for f in FACTORS]
     for col in ("exposure:term", "premium:def", "hedge:rate_future_10y", "exposure_after:term",
                 "tracking_error", "t_shanken:mkt"):
         assert col in frame.columns
