@@ -82,6 +82,11 @@ def _installed_solvers() -> tuple[str, ...]:
     """SOLVERS that are installed, looked up once (cvxpy's check imports every solver)."""
     if not _INSTALLED:
         have = set(cp.installed_solvers())
+        if "OSQP" in have:
+            import osqp  # option renamed in OSQP 1.0
+
+            if int(str(osqp.__version__).split(".")[0]) >= 1:
+                _SOLVER_OPTIONS["OSQP"]["polishing"] = _SOLVER_OPTIONS["OSQP"].pop("polish")
         _INSTALLED.append(tuple(name for name in SOLVERS if name in have))
     return _INSTALLED[0]
 
@@ -909,6 +914,8 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
                     message = (f"Targets for {unreachable} cannot be reached with these "
                                "instruments and limits; no overlay proposed (closest=True "
                                "gives the closest reachable one).")
+                if binding:
+                    message += " Limiting: " + "; ".join(dict.fromkeys(binding)) + "."
     if status == "optimal":
         binding += _active_limits(h_act, active, lo, hi, structure, spec,
                                   b_p[k_idx] + B[:, k_idx].T @ h_act)

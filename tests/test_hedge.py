@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import math
 
+import cvxpy as cp
 import numpy as np
 import pandas as pd
 import pytest
@@ -16,6 +17,7 @@ from hedgekit.hedge import (
     CAUTIONS,
     HedgeSpec,
     OverlayProblem,
+    OverlaySolveError,
     design_overlay,
     instrument_covariance,
 )
@@ -379,3 +381,47 @@ def test_other_bad_input():
         bad = cov.copy()
         bad.iloc[0, 0] = -1.0
         design_overlay(book, betas, bad, sheet, nav=1e8, spec=spec)
+
+
+# ------------------------------------------------------------------ solvers
+
+def test_falls_back_to_the_next_solver_when_clarabel_fails(monkeypatch):
+    """When CLARABEL raises, OSQP solves the same program to the same answer."""
+    first = solve(18)
+    original = cp.Problem.solve
+
+    def broken(self, *args, solver=None, **kw):
+        if solver == "CLARABEL":
+            raise cp.error.SolverError("simulated failure")
+        return original(self, *args, solver=solver, **kw)
+
+    monkeypatch.setattr("cvxpy.Problem.solve", broken)
+    again = solve(18)
+    assert again.solver in ("OSQP", "SCS") and again.status == "optimal"
+    np.testing.assert_allclose(again.positions, first.positions, atol=1e-5)
+
+
+def test_never_reports_a_non_optimal_status(monkeypatch):
+    """A solver that only reaches 'optimal_inaccurate' is not accepted as optimal."""
+    original = cp.Problem.solve
+
+    def inaccurate(self, *args, **kw):
+        original(self, *args, **kw)
+        self._status = cp.OPTIMAL_INACCURATE
+
+    monkeypatch.setattr("cvxpy.Problem.solve", inaccurate)
+    with pytest.raises(OverlaySolveError):
+        solve(19)
+
+
+def test_ledoit_wolf_covariance_and_quarterly_premium():
+    """Premium given up annualises with periods_per_year (4 for quarterly data)."""
+    betas, _, book, sheet = make_case(20)
+    rng = np.random.default_rng(200)
+    rets = pd.DataFrame(rng.normal(0, 0.03, (60, len(betas))), columns=betas.index)
+    cov = instrument_covariance(rets, periods_per_year=4, method="ledoit-wolf")
+    lam = pd.Series(0.01, index=FACTORS)
+    res = design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec.from_sheet(sheet, **BASE),
+                         premia=lam, periods_per_year=4)
+    assert res.status == "optimal"
+    assert res.premium_given_up == pytest.approx(-(betas.T @ res.positions) @ lam * 4, rel=1e-12)
