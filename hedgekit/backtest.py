@@ -294,9 +294,35 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
                          column="start", fix="start earlier or use a longer sample.")
 
     problem = OverlayProblem.for_inputs(instruments, spec, sheet)
-    lam_rows: list[pd.Series] = []
-    given_up = np.full(len(dates) if len(dates) else 0, np.nan)
     n = len(dates)
+    # Window [start, end) of each date in the rows with real-time factors: end counts the
+    # factor rows dated <= τ, so no later row enters any estimate made at τ.
+    kn_rows = np.flatnonzero(known)
+    ends = np.searchsorted(kn_rows, np.array([_loc(months, d) for d in dates]), side="right")
+    starts = np.zeros_like(ends) if beta_window is None else np.maximum(ends - int(beta_window), 0)
+    f_known = fac_all.to_numpy(dtype=float)[kn_rows]
+    per_date = spec.robust        # HAC errors per date come from the exposures stage
+    if not per_date:
+        coef, counts = _window_betas(panel.to_numpy(dtype=float)[kn_rows], f_known, starts, ends)
+        bad = counts < max(int(beta_min_obs), len(factors) + 2)
+        bad |= ~np.isfinite(coef).all(axis=2)
+        if bad.any():
+            d, j = np.argwhere(bad)[0]
+            who = "the book" if j == 0 else instruments[j - 1]
+            raise InputError(f"too few months to estimate the betas of {who} at {dates[d]}.",
+                             row=str(dates[d]), column=None if j == 0 else who,
+                             fix="start later, widen beta_window or supply more history.")
+    if covariance_method == "sample":
+        inst_cov = _window_cov(inst.to_numpy(dtype=float)[kn_rows], starts, ends)
+        if (inst_cov[1] < 2).any():
+            d = int(np.flatnonzero(inst_cov[1] < 2)[0])
+            raise InputError(f"fewer than 2 months where every instrument has a return at "
+                             f"{dates[d]}.", row=str(dates[d]), file="instruments",
+                             fix="start later or fill the instrument returns.")
+    if spec.objective == "total":
+        panel_cov = _window_cov(panel.to_numpy(dtype=float)[kn_rows], starts, ends)
+    lam_rows: list[pd.Series] = []
+    given_up = np.full(n, np.nan)
     pos = np.zeros((n, len(instruments)))
     te = np.zeros(n)
     turn = np.zeros(n)
@@ -305,39 +331,43 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
     b_path = np.zeros((n, len(factors)))
     bh_path = np.zeros((n, len(factors)))
     h_prev = pd.Series(0.0, index=instruments)
-    loc = {d: i for i, d in enumerate(months)}
-    for i, tau in enumerate(dates):   # one estimation and one solver call per rebalance
-        end = loc[tau] + 1
-        rows = np.flatnonzero(known[:end])
-        if beta_window is not None:
-            rows = rows[-int(beta_window):]
-        f_win = fac_all.iloc[rows]
-        p_win = panel.iloc[rows]
-        est = time_series_betas(p_win, f_win, hac_lags=hac_lags)
-        betas, se = est.betas, est.se_hac
-        if betas.isna().to_numpy().any():
-            bad = betas.index[betas.isna().any(axis=1)][0]
-            raise InputError(f"no betas for '{bad if bad != _BOOK else 'the book'}' at {tau}.",
-                             row=str(tau), column=None if bad == _BOOK else str(bad),
-                             fix="start later or supply more history for that series.")
-        i_win = inst.iloc[rows]
-        cov = instrument_covariance(i_win, periods_per_year=periods_per_year,
-                                    method=covariance_method)
+    fac_index = pd.Index(factors, name="factor")
+    for i, tau in enumerate(dates):   # one solver call per rebalance; estimates are batched
+        rows = kn_rows[starts[i]:ends[i]]
+        f_win = fac_all.iloc[rows] if per_date or spec.premium_weight > 0 else None
+        if per_date:
+            est = time_series_betas(panel.iloc[rows], f_win, hac_lags=hac_lags)
+            if est.betas.isna().to_numpy().any() or (est.n_obs < beta_min_obs).any():
+                short = est.betas.isna().any(axis=1) | (est.n_obs < beta_min_obs)
+                who = est.betas.index[short.to_numpy()][0]
+                raise InputError(f"no betas for '{who if who != _BOOK else 'the book'}' at "
+                                 f"{tau}.", row=str(tau),
+                                 column=None if who == _BOOK else str(who),
+                                 fix="start later or supply more history for that series.")
+            book_b, inst_b = est.betas.loc[_BOOK], est.betas.loc[instruments]
+        else:
+            book_b = pd.Series(coef[i, 0], index=fac_index)
+            inst_b = pd.DataFrame(coef[i, 1:], index=instruments, columns=fac_index)
+        if covariance_method == "sample":
+            cov = pd.DataFrame(inst_cov[0][i] * periods_per_year, index=instruments,
+                               columns=instruments)
+        else:
+            cov = instrument_covariance(inst.iloc[rows], periods_per_year=periods_per_year,
+                                        method=covariance_method)
         kw: dict[str, Any] = {}
         if spec.objective == "total":
-            both = p_win.dropna()
-            c = np.cov(both.to_numpy().T, ddof=1) * periods_per_year
+            c = panel_cov[0][i] * periods_per_year
             kw["book_variance"] = float(c[0, 0])
             kw["book_instrument_cov"] = pd.Series(c[0, 1:], index=instruments)
-        if spec.robust:
-            kw["book_se"] = se.loc[_BOOK]
-            kw["instrument_se"] = se.loc[instruments]
+        if per_date:
+            kw["book_se"] = est.se_hac.loc[_BOOK]
+            kw["instrument_se"] = est.se_hac.loc[instruments]
         if spec.premium_weight > 0:
             lam = _prices_of_risk(asset_returns, f_win, nw_lags=nw_lags,
                                   intercept=premia_intercept)
             lam_rows.append(lam.rename(tau))
             kw["premia"] = lam
-        res = design_overlay(betas.loc[_BOOK], betas.loc[instruments], cov, sheet, nav=nav,
+        res = design_overlay(book_b, inst_b, cov, sheet, nav=nav,
                              spec=spec, current=h_prev, closest=closest,
                              periods_per_year=periods_per_year, problem=problem, **kw)
         h = res.positions.reindex(instruments).fillna(0.0)
@@ -439,6 +469,65 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
         nav=float(nav), n_months=n_months, periods_per_year=int(periods_per_year),
         settings=settings, warnings=tuple(warnings),
     )
+
+
+def _loc(index: pd.PeriodIndex, date: pd.Period) -> int:
+    """Position of ``date`` in ``index``."""
+    return int(index.get_loc(date))
+
+
+def _cumulative(a: np.ndarray) -> np.ndarray:
+    """Running sums with a leading zero row: out[e] - out[s] sums rows s..e-1."""
+    out = np.zeros((a.shape[0] + 1, *a.shape[1:]))
+    np.cumsum(a, axis=0, out=out[1:])
+    return out
+
+
+def _window_betas(y: np.ndarray, f: np.ndarray, starts: np.ndarray, ends: np.ndarray
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """OLS slopes of each column of ``y`` on [1, f] over rows [start, end) for every date.
+
+    Normal equations from running sums of x x' and x y per series over its own valid rows
+    (b = (X'X)^{-1} X'y, the same estimator as hedgekit.exposures.time_series_betas),
+    solved for all dates and series in one batched call.  Returns slopes (D, N, K) and the
+    valid-month counts (D, N).  Running sums only add earlier rows, so the estimate at a
+    date does not depend on any later row, to the bit.
+    """
+    mask = np.isfinite(y)
+    x = np.column_stack([np.ones(len(f)), f])
+    y0 = np.where(mask, y, 0.0)
+    m = mask.astype(float)
+    xx = _cumulative(np.einsum("rp,rq,rn->rnpq", x, x, m))
+    xy = _cumulative(np.einsum("rp,rn->rnp", x, y0))
+    cnt = _cumulative(m)
+    a = xx[ends] - xx[starts]
+    b = xy[ends] - xy[starts]
+    n = np.rint(cnt[ends] - cnt[starts]).astype(np.int64)
+    p = x.shape[1]
+    ok = n >= p + 1
+    safe = np.where(ok[..., None, None], a, np.eye(p))
+    coef = np.linalg.solve(safe, b[..., None])[..., 0]
+    coef[~ok] = np.nan
+    return coef[..., 1:], n
+
+
+def _window_cov(z: np.ndarray, starts: np.ndarray, ends: np.ndarray
+                ) -> tuple[np.ndarray, np.ndarray]:
+    """Sample covariance (divisor n - 1) over the rows in [start, end) where every column
+    is present (listwise, like hedgekit.hedge.instrument_covariance), for every date:
+    (S_zz - s_z s_z' / n) / (n - 1).  Returns (D, H, H) covariances and counts (D,)."""
+    full = np.isfinite(z).all(axis=1)
+    z0 = np.where(full[:, None], z, 0.0)
+    s1 = _cumulative(z0)
+    s2 = _cumulative(np.einsum("rh,rg->rhg", z0, z0))
+    cnt = _cumulative(full.astype(float))
+    n = np.rint(cnt[ends] - cnt[starts])
+    s = s1[ends] - s1[starts]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        cov = (s2[ends] - s2[starts] - np.einsum("dh,dg->dhg", s, s) / n[:, None, None]) \
+            / (n[:, None, None] - 1)
+    cov = 0.5 * (cov + np.transpose(cov, (0, 2, 1)))
+    return cov, n.astype(np.int64)
 
 
 def _prices_of_risk(asset_returns: pd.DataFrame, factors: pd.DataFrame, *,
