@@ -412,7 +412,10 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
                nav: float, market: str | None = None, overlay_betas: pd.Series | None = None,
                scenarios: Sequence[Mapping[str, Any]] | None = None,
                include_builtin: bool = True, book_se: pd.Series | None = None,
-               overlay_se: pd.Series | None = None, raw_innovations: pd.DataFrame | None = None,
+               overlay_se: pd.Series | None = None, positions: pd.Series | None = None,
+               instrument_betas: pd.DataFrame | None = None,
+               instrument_se: pd.DataFrame | None = None,
+               raw_innovations: pd.DataFrame | None = None,
                factors: pd.DataFrame | None = None, book_returns: pd.Series | None = None,
                worst_k: int = 5, recession_quantile: float = 0.05,
                confidence: float = 0.95) -> StressResult:
@@ -426,7 +429,10 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
     ``sample_recession`` is the mean raw innovation over the ``recession_quantile`` worst
     months of ``b' M u_t``.  With ``factors`` (and optionally ``book_returns``) the worst
     ``worst_k`` months and quarters are replayed.  Intervals at ``confidence`` use the
-    normal quantile and independent beta errors (see the module docstring).
+    normal quantile and independent beta errors (see the module docstring).  Instead of
+    ``overlay_betas``/``overlay_se`` the overlay may be given as ``positions`` (weights of
+    NAV by instrument) with ``instrument_betas`` (instrument × factor) and optionally
+    ``instrument_se``; see :func:`overlay_exposure`.
     """
     if not (isinstance(nav, int | float) and math.isfinite(nav) and nav > 0):
         raise InputError(f"NAV must be a positive number, got {nav!r}.", column="nav",
@@ -440,6 +446,19 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
     if worst_k < 1:
         raise InputError(f"worst_k must be at least 1, got {worst_k}.", column="worst_k",
                          fix="use for example 5.")
+    if positions is not None:
+        if overlay_betas is not None:
+            raise InputError("give the overlay as overlay_betas or as positions, not both.",
+                             fix="pass HedgeResult.positions with the instruments' betas.")
+        if instrument_betas is None:
+            raise InputError("positions need the instruments' betas to give the overlay's "
+                             "exposure.", fix="pass instrument_betas (instrument x factor).")
+        unknown = [str(i) for i in positions.index if i not in instrument_betas.index]
+        if unknown:
+            raise InputError(f"positions in instruments without betas: {unknown}.",
+                             column=unknown[0], fix="estimate every held instrument's betas.")
+        overlay_betas, se = overlay_exposure(positions, instrument_betas, instrument_se)
+        overlay_se = se if instrument_se is not None else overlay_se
     market = market if market is not None else str(transform.index[0])
     variables = _check_inputs(book_betas, transform, sigma_u, market)
     warnings: list[str] = []

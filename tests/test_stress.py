@@ -108,6 +108,9 @@ def test_hedge_and_intervals():
                                - 0.25 * inst.loc["credit_index_hy"].to_numpy())
     se_b = BOOK.abs() * 0.1
     res = run_stress(BOOK, M, SIGMA, nav=NAV, overlay_betas=o, book_se=se_b, overlay_se=o_se)
+    same = run_stress(BOOK, M, SIGMA, nav=NAV, positions=h, instrument_betas=inst,
+                      instrument_se=inst_se, book_se=se_b)
+    pd.testing.assert_frame_equal(same.to_frame(), res.to_frame())
     g = res.shocks.to_numpy()
     np.testing.assert_allclose(res.table["hedged"], g @ (BOOK + o).to_numpy(), rtol=1e-12)
     se = np.sqrt(g ** 2 @ (se_b.to_numpy() ** 2 + o_se.to_numpy() ** 2))
