@@ -281,6 +281,7 @@ class OverlayProblem:
         }
         self._main = self._build(self.h, slack=None)
         self._closest: tuple[cp.Problem, cp.Problem, cp.Variable, cp.Variable] | None = None
+        self._closest_slack: tuple[cp.Variable, cp.Variable] | None = None
 
     # -- construction
     @classmethod
@@ -390,23 +391,27 @@ class OverlayProblem:
     def solve_main(self) -> tuple[str, str]:
         return self._run(self._main)
 
-    def solve_closest(self, *, second_stage: bool) -> tuple[str, str, np.ndarray, np.ndarray,
-                                                             np.ndarray | None]:
-        """Lexicographic closest overlay: (outcome, solver, neutral excess, keep excess, h)."""
+    def solve_closest(self) -> tuple[str, str, np.ndarray, np.ndarray, np.ndarray | None,
+                                     float | None]:
+        """Lexicographic closest overlay, two solves: least total excess over the targets and
+        bands first, then least objective with the excess held at that minimum.
+
+        Returns (outcome, solver, neutral excess, keep excess, h, objective value or None
+        when the second stage did not solve and h is the first stage's).
+        """
         first, second, h1, h2 = self._closest_programs()
         outcome, solver = self._run(first)
         if outcome != "optimal":
-            return outcome, solver, np.array([]), np.array([]), None
+            return outcome, solver, np.array([]), np.array([]), None, None
         s_n = np.maximum(np.asarray(self._closest_slack[0].value, dtype=float), 0.0)
         s_k = np.maximum(np.asarray(self._closest_slack[1].value, dtype=float), 0.0)
-        h = np.asarray(h1.value, dtype=float)
-        if second_stage:
-            total = float(s_n.sum() + s_k.sum())
-            self.params["smax"].value = total * (1 + 1e-8) + 1e-10
-            outcome2, solver2 = self._run(second)
-            if outcome2 == "optimal":
-                h, solver = np.asarray(h2.value, dtype=float), solver2
-        return outcome, solver, s_n, s_k, h
+        h, value = np.asarray(h1.value, dtype=float), None
+        # a hair of room above the minimum so the second program keeps a strict interior
+        self.params["smax"].value = float(s_n.sum() + s_k.sum()) * (1 + 1e-8) + 1e-10
+        outcome2, solver2 = self._run(second)
+        if outcome2 == "optimal":
+            h, solver, value = np.asarray(h2.value, dtype=float), solver2, float(second.value)
+        return outcome, solver, s_n, s_k, h, value
 
     @property
     def main_value(self) -> float:
@@ -416,9 +421,6 @@ class OverlayProblem:
     def main_solution(self) -> np.ndarray:
         return np.asarray(self.h.value, dtype=float)
 
-    @property
-    def second_value(self) -> float:
-        return float(self._closest_programs()[1].value)
 
 
 def _structure(active: list[str], spec: HedgeSpec, lo: np.ndarray, hi: np.ndarray) -> _Structure:
@@ -876,13 +878,13 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
         raise OverlaySolveError(f"no solver returned an optimal overlay (last tried {solver})")
     if outcome == "infeasible":
         if n_h == 0:
-            o1, h_c = "optimal", np.zeros(0)
+            o1, h_c, closest_value = "optimal", np.zeros(0), 0.0
             s_n = np.abs(b_p[n_idx] - targets) - tol if n_idx else np.zeros(0)
             keep_b = b_p[k_idx]
             s_k = np.maximum(np.array([spec.keep[f][0] for f in spec.keep]) - keep_b, 0.0) + \
                 np.maximum(keep_b - np.array([spec.keep[f][1] for f in spec.keep]), 0.0)
         else:
-            o1, solver, s_n, s_k, h_c = problem.solve_closest(second_stage=True)
+            o1, solver, s_n, s_k, h_c, closest_value = problem.solve_closest()
         if o1 == "infeasible":
             status = "unreachable"
             unreachable = list(dict.fromkeys(unreachable + list(spec.neutralise) + list(spec.keep)))
@@ -897,8 +899,11 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
             far = [f for f, e in zip(remaining.index, excess, strict=True) if e > _REACH_TOL]
             if not far and not unreachable:
                 # reachable after all (the main program was numerically on the edge)
+                if closest_value is None:
+                    raise OverlaySolveError("no solver returned an optimal overlay at the "
+                                            "edge of the targets")
                 h_act = h_c
-                objective_value = problem.second_value
+                objective_value = closest_value
             else:
                 status = "unreachable"
                 unreachable = list(dict.fromkeys(unreachable + far))
@@ -906,7 +911,7 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
                                           b_p[k_idx] + B[:, k_idx].T @ h_c)
                 if closest:
                     h_act = h_c
-                    objective_value = problem.second_value if n_h else 0.0
+                    objective_value = closest_value
                     message = (f"Targets for {unreachable} cannot be reached; the positions are "
                                "the closest overlay (least remaining exposure, then least "
                                "tracking variance).")

@@ -425,3 +425,23 @@ def test_ledoit_wolf_covariance_and_quarterly_premium():
                          premia=lam, periods_per_year=4)
     assert res.status == "optimal"
     assert res.premium_given_up == pytest.approx(-(betas.T @ res.positions) @ lam * 4, rel=1e-12)
+
+
+def test_keep_band_out_of_reach_is_named():
+    betas, cov, book, sheet = make_case(21)
+    sheet = sheet.assign(min_weight=-0.01, max_weight=0.01)
+    spec = HedgeSpec.from_sheet(sheet, keep={"mkt": (0.2, 0.3)})
+    res = design_overlay(book, betas, cov, sheet, nav=1e8, spec=spec, closest=True)
+    assert res.status == "unreachable" and res.unreachable == ("mkt",)
+    assert res.remaining["mkt"] == pytest.approx(res.exposure_after["mkt"] - 0.3, abs=1e-7)
+    assert "Limiting:" in res.message
+
+
+def test_every_instrument_excluded():
+    betas, cov, book, sheet = make_case(22)
+    everything = tuple(betas.index)
+    res = design_overlay(book, betas, cov, sheet, nav=1e8,
+                         spec=HedgeSpec(neutralise=("term",), exclude=everything))
+    assert res.status == "unreachable" and res.unreachable == ("term",)
+    calm = design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec(exclude=everything))
+    assert calm.status == "optimal" and calm.gross == 0.0
