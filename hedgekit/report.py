@@ -1059,11 +1059,16 @@ def render_html(doc: Document, *, generated: str = "") -> str:
 
 
 _MD_SPECIAL = re.compile(r"([\\`*\[\]#|])")
+_MD_TAG = re.compile(r"<(?=[A-Za-z/!?])")       # what could open raw HTML (CommonMark 6.6)
+_MD_ENTITY = re.compile(r"&(?=#|[A-Za-z][A-Za-z0-9]*;)")
 
 
 def _md(text: Any) -> str:
-    """Markdown-safe text: markup characters backslash-escaped, angle brackets as entities."""
-    s = str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+    """Markdown-safe text: markup characters backslash-escaped; a "<" that could open an HTML
+    tag and an "&" that could start an entity are written as entities, so no user string
+    becomes markup (a plain "p < 0.001" stays readable)."""
+    s = _MD_ENTITY.sub("&amp;", str(text))
+    s = _MD_TAG.sub("&lt;", s)
     s = _MD_SPECIAL.sub(r"\\\1", s)
     return " ".join(s.splitlines())
 
