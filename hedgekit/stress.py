@@ -105,6 +105,8 @@ class StressResult:
     ``shocks`` (rows as ``table``) are the orthogonal factor shocks ``g``, ``surprises``
     the raw natural-unit surprises after the reading is applied, and
     ``contributions_unhedged`` / ``contributions_hedged`` the per-factor terms ``b_f g_f``.
+    ``largest_sd`` (the largest named surprise in monthly innovation standard deviations)
+    and ``mahalanobis`` (sqrt(s' Sigma_u^{-1} s)) say how extreme a scenario is.
     ``replay_months`` / ``replay_quarters`` list the worst months and quarters of the
     sample, by factor contribution and by the book's state-driven P&L.
     """
@@ -136,6 +138,8 @@ class StressResult:
                 "name": r.scenario,
                 "reading": r.reading,
                 "description": r.description,
+                "largest_sd": r.largest_sd,
+                "mahalanobis": r.mahalanobis,
                 "surprise": self.surprises.iloc[i].to_dict(),
                 "shocks": self.shocks.iloc[i].to_dict(),
                 "contributions": {
@@ -515,6 +519,15 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
         table[f"{side}_ccy_lo"] = (p - z * s) * nav
         table[f"{side}_ccy_hi"] = (p + z * s) * nav
     table["hedge_saves_ccy"] = (pnl_h - pnl_u) * nav
+    # How far out a scenario is: the largest named surprise in monthly innovation standard
+    # deviations, and the Mahalanobis distance sqrt(s' Sigma_u^{-1} s) of the whole raw
+    # surprise (common practice for judging a scenario's plausibility).
+    sig = sigma_u.reindex(index=variables, columns=variables).to_numpy(dtype=float)
+    sd = np.sqrt(np.diag(sig))
+    named = np.isfinite(spec.to_numpy())
+    table["largest_sd"] = np.nanmax(np.where(named, np.abs(spec.to_numpy()) / sd, np.nan), axis=1)
+    fill = filled.to_numpy()
+    table["mahalanobis"] = np.sqrt(np.einsum("si,si->s", fill, np.linalg.solve(sig, fill.T).T))
 
     book_s = pd.Series(b, index=variables, name="book")
     hedged_s = pd.Series(bh, index=variables, name="hedged")

@@ -236,3 +236,21 @@ def test_agrees_with_states_surprise_map():
         other = surprise_to_shocks(M, SIGMA, sc["shocks"], reading=row["reading"])
         np.testing.assert_allclose(res.shocks.loc[i].to_numpy(), other.loc[V].to_numpy(),
                                    rtol=1e-10, atol=1e-14)
+
+
+def test_plausibility_columns():
+    """largest_sd = max |s_j| / sd_j over named variables; the co-move completion has the
+    smallest Mahalanobis distance of all completions (it minimises s' Sigma^{-1} s given
+    s_J, which leaves sqrt(s_J' Sigma_JJ^{-1} s_J): the Gaussian conditional-mean property,
+    textbook, from memory), so it is never above the isolated one."""
+    scen = [{"name": "a", "shocks": {"term": 0.01, "def": 0.015}}]
+    res = run_stress(BOOK, M, SIGMA, nav=NAV, scenarios=scen, include_builtin=False)
+    sd = np.sqrt(np.diag(SIGMA.to_numpy()))
+    t = res.table.set_index("reading")
+    expected_sd = max(0.01 / sd[V.index("term")], 0.015 / sd[V.index("def")])
+    assert t.loc["isolated", "largest_sd"] == pytest.approx(expected_sd)
+    j = [V.index("term"), V.index("def")]
+    sj = np.array([0.01, 0.015])
+    floor = np.sqrt(sj @ np.linalg.solve(SIGMA.to_numpy()[np.ix_(j, j)], sj))
+    assert t.loc["comove", "mahalanobis"] == pytest.approx(floor, rel=1e-9)
+    assert t.loc["isolated", "mahalanobis"] >= t.loc["comove", "mahalanobis"]
