@@ -270,3 +270,20 @@ def test_robust_and_shrinkage_paths(demo):
                          covariance_method="ledoit-wolf")
     assert res.settings["covariance_method"] == "ledoit-wolf"
     assert plain.rebalance_dates.equals(res.rebalance_dates)
+
+
+def test_invariant_to_instrument_order_and_nav(demo):
+    """Invariants: reordering the instruments permutes the decisions; scaling NAV leaves
+    the weights (fractions of NAV) and costs as fractions unchanged (up to solver tolerance)."""
+    n = 220
+    states, book = demo["states"].iloc[:n], demo["book"].iloc[:n]
+    inst = demo["instruments"].iloc[:n]
+    kw = dict(spec=demo["spec"], min_window=60)
+    base = walk_forward(states, book, inst, demo["sheet"], nav=NAV, **kw)
+    order = list(inst.columns[::-1])
+    sheet = demo["sheet"].set_index("instrument").loc[order].reset_index()
+    other = walk_forward(states, book, inst[order], sheet, nav=NAV * 4, **kw)
+    np.testing.assert_allclose(other.decisions[base.decisions.columns].to_numpy(),
+                               base.decisions.to_numpy(), atol=1e-6)
+    np.testing.assert_allclose(other.cost_path.to_numpy(), base.cost_path.to_numpy(), atol=1e-8)
+    assert other.effectiveness == pytest.approx(base.effectiveness, abs=1e-6)
