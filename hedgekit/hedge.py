@@ -589,6 +589,22 @@ class HedgeResult:
         """The hedge ticket: one row per instrument."""
         return self.ticket.copy()
 
+    def exposure_table(self) -> pd.DataFrame:
+        """By factor: exposure before, after, after rounding, and the confidence bounds
+        (b -/+ z se, z the two-sided normal quantile of ``confidence``) when se are known."""
+        table = pd.DataFrame({"before": self.exposure_before, "after": self.exposure_after,
+                              "after_rounded": self.exposure_after_rounded})
+        if self.exposure_before_se is not None and self.exposure_after_se is not None:
+            z = float(stats.norm.ppf(0.5 + self.confidence / 2))
+            table["before_se"] = self.exposure_before_se
+            table["after_se"] = self.exposure_after_se
+            table["before_low"] = table["before"] - z * table["before_se"]
+            table["before_high"] = table["before"] + z * table["before_se"]
+            table["after_low"] = table["after"] - z * table["after_se"]
+            table["after_high"] = table["after"] + z * table["after_se"]
+        table.index.name = "factor"
+        return table
+
 
 # --------------------------------------------------------------------------- validation
 

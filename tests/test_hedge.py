@@ -152,7 +152,7 @@ def test_weight_bounds_and_cap_respected_and_reported():
 
 # ------------------------------------------------------------------ property tests
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=25, deadline=None, derandomize=True)
 @given(seed=st.integers(0, 10_000), nav=st.floats(1e6, 1e10), factor=st.integers(2, 50))
 def test_nav_scales_notionals_and_contracts_not_weights(seed, nav, factor):
     """Common practice: weights are fractions of NAV, so NAV only scales money."""
@@ -165,7 +165,7 @@ def test_nav_scales_notionals_and_contracts_not_weights(seed, nav, factor):
     assert b.cost_currency == pytest.approx(a.cost_currency * factor, rel=1e-10)
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=25, deadline=None, derandomize=True)
 @given(seed=st.integers(0, 5), perm=st.permutations(list(range(8))))
 def test_permuting_instruments_permutes_the_answer(seed, perm):
     betas, cov, book, sheet = make_case(seed)
@@ -180,7 +180,7 @@ def test_permuting_instruments_permutes_the_answer(seed, perm):
     assert shuffled.objective_value == pytest.approx(base.objective_value, rel=1e-6, abs=1e-10)
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=25, deadline=None, derandomize=True)
 @given(seed=st.integers(0, 10_000), mkt=st.floats(0.92, 1.08))
 def test_already_neutral_zero_cost_book_gets_no_overlay(seed, mkt):
     betas, cov, book, sheet = make_case(seed % 11, cost=False)
@@ -195,7 +195,7 @@ def test_already_neutral_zero_cost_book_gets_no_overlay(seed, mkt):
     assert res.tracking_error < 1e-6
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=25, deadline=None, derandomize=True)
 @given(seed=st.integers(0, 10_000), tol=st.floats(0.0, 0.2), extra=st.floats(0.0, 0.2))
 def test_looser_tolerance_never_raises_the_objective(seed, tol, extra):
     betas, cov, book, sheet = make_case(seed % 13)
@@ -445,3 +445,17 @@ def test_every_instrument_excluded():
     assert res.status == "unreachable" and res.unreachable == ("term",)
     calm = design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec(exclude=everything))
     assert calm.status == "optimal" and calm.gross == 0.0
+
+
+def test_exposure_table_gives_intervals():
+    """95 % bounds b -/+ 1.96 se (normal quantile, common practice)."""
+    betas, cov, book, sheet = make_case(23)
+    res = design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec.from_sheet(sheet, **BASE),
+                         book_se=pd.Series(0.02, index=FACTORS), instrument_se=betas * 0 + 0.01)
+    table = res.exposure_table()
+    assert list(table.index) == FACTORS
+    np.testing.assert_allclose(table["after_high"] - table["after"],
+                               1.959963984540054 * table["after_se"], rtol=1e-12)
+    assert (table["before_se"] == 0.02).all()
+    assert res.to_dict()["exposure_after_interval"]["term"][1] == pytest.approx(
+        table.loc["term", "after_high"])
