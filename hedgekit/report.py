@@ -265,6 +265,10 @@ def _summary(run: Mapping) -> Section:
                             numeric=(False, True, True, False, True),
                             note=_se_note(exposures)))
     if hedge:
+        if str(hedge.get("status") or "") == "unreachable":
+            names = ", ".join(str(f) for f in hedge.get("unreachable") or []) or "some factors"
+            blocks.append(Para(f"The hedge targets cannot be reached for {names}; the overlay shown "
+                               "is the closest reachable one.", "alert"))
         blocks.append(Bullets(tuple(_hedge_lines(run))))
     worst = _worst_scenario(stress, ccy)
     if worst:
@@ -300,10 +304,6 @@ def _hedge_lines(run: Mapping) -> list[str]:
     hedge = run.get("hedge") or {}
     contracts = hedge.get("contracts") or {}
     lines = []
-    status = str(hedge.get("status") or "")
-    if status == "unreachable":
-        names = ", ".join(str(f) for f in hedge.get("unreachable") or []) or "some factors"
-        lines.append(f"The targets cannot be reached for {names}; the closest reachable overlay is shown.")
     positions = sorted(_positions(hedge).items(), key=lambda kv: -abs(float(kv[1])))
     legs = []
     for name, w in positions[:3]:
@@ -314,7 +314,8 @@ def _hedge_lines(run: Mapping) -> list[str]:
         legs.append(f"{side} {count}{name} ({fmt(w, 3, plus=True)} of NAV{amount})")
     if positions:
         gross = sum(abs(float(w)) for _, w in positions)
-        more = f"; {len(positions) - 3} smaller legs in the ticket" if len(positions) > 3 else ""
+        extra = len(positions) - 3
+        more = f"; {extra} smaller leg{'s' if extra > 1 else ''} in the ticket" if extra > 0 else ""
         lines.append(f"Overlay of {len(positions)} legs, gross {fmt(gross, 2)} \u00d7 NAV: "
                      + "; ".join(legs) + more + ".")
     else:
@@ -505,7 +506,9 @@ def _premia_section(run: Mapping) -> Section | None:
     if premia.get("r2_cs") is not None:
         facts.append(f"Cross-sectional R\u00b2 on average returns: {fmt(premia.get('r2_cs'), 3)}.")
     if premia.get("n_periods") is not None:
-        facts.append(f"Months used: {premia.get('n_periods')}; skipped: {premia.get('n_skipped', 0)}.")
+        unit = "Quarters" if ppy == 4 else "Months"
+        facts.append(f"{unit} used: {premia.get('n_periods')}; skipped: {premia.get('n_skipped', 0)}"
+                     + (f"; test assets: {premia['n_assets']}" if premia.get("n_assets") else "") + ".")
     for key, label in (("pricing_error_test", "Pricing errors jointly zero"),
                        ("pricing_error_test_shanken", "The same test with the Shanken adjustment")):
         test = premia.get(key) or {}
@@ -577,16 +580,20 @@ def _hedge_section(run: Mapping) -> Section | None:
     after = hedge.get("exposure_after") or {}
     rounded = hedge.get("exposure_after_rounded") or {}
     if after:
-        cols = ["Factor", "Before", "Target", "After"] + (["After rounding"] if rounded else [])
+        remaining = hedge.get("remaining") or {} if status == "unreachable" else {}
+        cols = ["Factor", "Before", "Target", "After"] + (["After rounding"] if rounded else []) \
+            + (["Short of the target by"] if remaining else [])
         targets = _targets(meta, hedge)
         rows = []
         for f in factors:
             row = [f, fmt(before.get(f)), targets.get(f, DASH), fmt(after.get(f))]
             if rounded:
                 row.append(fmt(rounded.get(f)))
+            if remaining:
+                row.append(fmt(remaining.get(f)) if f in remaining else DASH)
             rows.append(tuple(row))
         blocks.append(Table(tuple(cols), tuple(rows), caption="Exposure the overlay leaves",
-                            numeric=(False, True, False, True) + ((True,) if rounded else ())))
+                            numeric=(False, True, False) + (True,) * (len(cols) - 3)))
     facts = []
     if hedge.get("tracking_error") is not None:
         te = f"Tracking error of the hedged against the unhedged book: {pct(hedge['tracking_error'])} a year"
@@ -842,7 +849,8 @@ def _diagnostics(run: Mapping) -> Section | None:
                             caption="VAR equations", numeric=(False, True)))
     premia = run.get("premia") or {}
     if premia.get("n_skipped"):
-        blocks.append(Para(f"{premia['n_skipped']} months were skipped in the cross-sectional step "
+        unit = "quarters" if _periods_per_year(run.get("meta") or {}) == 4 else "months"
+        blocks.append(Para(f"{premia['n_skipped']} {unit} were skipped in the cross-sectional step "
                            "(too few usable assets or a rank-deficient design)."))
     exposures = run.get("exposures") or {}
     direct = exposures.get("portfolio_direct") or {}

@@ -270,6 +270,8 @@ def test_unreachable_hedge_is_flagged() -> None:
     hedge = next(s for s in doc.sections if s.key == "hedge")
     alert = hedge.blocks[0]
     assert isinstance(alert, report.Para) and alert.kind == "alert" and "def" in alert.text
+    summary_alerts = [b for b in doc.sections[0].blocks if isinstance(b, report.Para) and b.kind == "alert"]
+    assert len(summary_alerts) == 1 and "def" in summary_alerts[0].text
 
 
 def test_non_stationary_var_is_loud() -> None:
@@ -359,3 +361,21 @@ def test_real_demo_run_report_and_store(tmp_path: Path) -> None:
     assert rec.run["hedge"]["positions"] == run["hedge"]["positions"]
     frame = store.history_frame()
     assert frame.loc[0, "exposure:term"] == run["exposures"]["portfolio"]["term"]
+
+
+def test_quarterly_run_reads_in_quarters(tmp_path: Path) -> None:
+    run = demo_run()
+    run["meta"]["frequency"] = "quarterly"
+    n = len(run["exposures"]["rolling"]["dates"])
+    quarters = [f"{1986 + i // 4}Q{i % 4 + 1}" for i in range(n)]
+    run["exposures"]["rolling"]["dates"] = quarters
+    doc = report.build_document(run)
+    premia = next(s for s in doc.sections if s.key == "premia")
+    table = next(b for b in premia.blocks if isinstance(b, report.Table))
+    mkt = next(r for r in table.rows if r[0] == "mkt")
+    # a year is four quarters: the annual premium is four times the per-period one
+    assert mkt[2] == report.pct(run["premia"]["lambda"]["mkt"] * 4)
+    facts = next(b for b in premia.blocks if isinstance(b, report.Bullets)).items
+    assert any(f.startswith("Quarters used") for f in facts)
+    assert np.allclose(plots._month_axis(quarters[:3]), [1986.0, 1986.25, 1986.5])
+    assert report.write_report(run, tmp_path)["figure_rolling"].exists()
