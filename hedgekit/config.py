@@ -47,8 +47,6 @@ SCHEMA: dict[str, dict[str, tuple[str, Any, Any]]] = {
         "lags": ("int|choice", 1, ("aic", "bic", "hq")),
         "max_lags": ("int", 8, (1, 24)),
         "market_factor": ("choice", "return", ("return", "innovation")),
-        "realtime_min": ("int", 120, (24, None)),
-        "realtime_window": ("int|none", None, (24, None)),
     },
     "exposures": {
         "window": ("int|choice", 60, ("full",)),
