@@ -6,10 +6,15 @@ At each rebalance date τ (quarter ends by default, or every month) and with dat
 1. real-time factors f_t = [market excess return, ũ_2, ..., ũ_K] for t ≤ τ, where row t
    is the one-step forecast error of the VAR fitted through t-1, orthogonalised with that
    fit's M (:func:`hedgekit.states.realtime_innovations`);
-2. time-series betas of the book and of each instrument on those factors
-   (:func:`hedgekit.exposures.time_series_betas`; expanding, or the last ``beta_window``
-   months), the annualised instrument covariance (:func:`hedgekit.hedge.instrument_covariance`)
-   and, when the objective prices exposures, Fama-MacBeth prices of risk on the test assets;
+2. time-series OLS betas of the book and of each instrument on those factors (expanding,
+   or the last ``beta_window`` factor months), each series on its own valid months, and the
+   annualised sample covariance of the instruments (listwise, divisor n - 1).  These come
+   for every rebalance date at once from running sums of cross-products (a batched solve;
+   the tests check them against :func:`hedgekit.exposures.time_series_betas` and
+   :func:`hedgekit.hedge.instrument_covariance` on each window).  The robust overlay (which
+   needs HAC errors) and the Ledoit-Wolf covariance call those stage functions per date.
+   When the objective prices exposures, Fama-MacBeth prices of risk on the test assets
+   (:func:`hedgekit.premia.fama_macbeth`) are re-estimated at each date too;
 3. the overlay (:func:`hedgekit.hedge.design_overlay`) re-solving one compiled
    :class:`hedgekit.hedge.OverlayProblem`, trading from the overlay held before.
 
@@ -28,7 +33,10 @@ Evaluation, on the out-of-sample months (after the first rebalance):
   and S_f to the neutralised factors (the figure a hedge of those factors should move);
 * realised tracking error sd(h' r_H) × sqrt(periods_per_year) against the predicted one,
   sqrt(mean over held months of h_τ' Σ_H h_τ) (annualised);
-* turnover sum |h_τ - h_τ-| and costs paid, in total and per year.
+* ``effectiveness_by_factor``: 1 - b_h,f^2 / b_u,f^2, factor by factor;
+  ``variance_reduction``: 1 - var(hedged) / var(unhedged) of the realised returns;
+* turnover sum |h_τ - h_τ-| (the first build from zero included) and costs paid
+  sum_j c_j |h_τ,j - h_τ-,j|, in total and per year, as fractions of NAV.
 """
 
 from __future__ import annotations
@@ -264,8 +272,17 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
     factors = tuple(str(c) for c in fac_all.columns)
     freq = fac_all.index.freqstr
     months = fac_all.index
-    book = _as_series(book_returns).reindex(months)
+    book = _as_series(book_returns)
+    if not isinstance(instrument_returns.index, pd.PeriodIndex) or \
+            instrument_returns.index.freqstr != freq:
+        raise InputError(f"instrument returns must be indexed by a PeriodIndex at the state "
+                         f"data's frequency ({freq}).", file="instruments",
+                         fix="index them with pd.PeriodIndex(..., freq='M').")
+    if book.index.freqstr != freq:
+        raise InputError(f"the book's returns are not at the state data's frequency ({freq}).",
+                         file="portfolio_returns", fix="use one frequency for every input.")
     inst = instrument_returns.apply(pd.to_numeric, errors="coerce").astype(float).reindex(months)
+    book = book.reindex(months)
     instruments = [str(c) for c in inst.columns]
     inst.columns = instruments
     known = fac_all.notna().all(axis=1).to_numpy()
