@@ -10,9 +10,16 @@ Two readings of a scenario (methods.md section 1):
 
 * ``"isolated"``: the raw surprises of the variables not named are zero, ``g = M s``;
 * ``"comove"``: they sit at their conditional mean given the named ones,
-  ``s~ = Sigma_{.J} Sigma_{JJ}^{-1} s_J`` (the multivariate-normal conditional mean, a
-  textbook result; Hamilton 1994, *Time Series Analysis*, ch. 4, from memory), and
-  ``g = M s~``.
+  ``s~ = Sigma_{.J} Sigma_{JJ}^{-1} s_J`` (the multivariate-normal conditional mean;
+  Anderson 2003, *An Introduction to Multivariate Statistical Analysis*, thm. 2.5.1, from
+  memory), and ``g = M s~``.
+
+Built-in scenarios (:data:`BUILTIN_SCENARIOS`) run in both readings; ``sample_recession``
+is the mean raw innovation over the months of the user's sample where the book's
+state-driven P&L ``b' M u_t`` is in its worst ``recession_quantile`` (5 % by default).
+The historical replay lists the worst months and calendar quarters of the sample for
+each factor's contribution ``b_f f_{f,t}`` and for the book's state-driven P&L ``b' f_t``,
+with the hedged model P&L and the realised return (:func:`historical_replay`).
 
 Intervals come from the betas' standard errors only, assuming the estimates are
 independent across factors and between book and overlay (an approximation; the

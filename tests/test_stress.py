@@ -70,7 +70,8 @@ def test_builtin_pnl_equals_b_M_s_independently():
 def test_comove_equals_conditional_mean_precision_form():
     """Co-move reading: unnamed raw surprises at E[u_K | u_J = s_J]; checked against the
     precision-matrix form -P_KK^{-1} P_KJ s_J of the Gaussian conditional mean (textbook
-    identity via the Schur complement; e.g. Hamilton 1994 ch. 4, from memory)."""
+    identity via the Schur complement; Anderson 2003, *An Introduction to Multivariate
+    Statistical Analysis*, ch. 2, from memory)."""
     prec = np.linalg.inv(SIGMA.to_numpy())
     scen = [{"name": "two", "shocks": {"term": 0.01, "def": 0.015}, "reading": "comove"},
             {"name": "one", "shocks": {"rf": -0.01}, "reading": "comove"}]
