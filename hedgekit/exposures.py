@@ -21,6 +21,8 @@ each series on its own valid months (unbalanced panels are normal).
 from __future__ import annotations
 
 import math
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -40,9 +42,11 @@ __all__ = [
     "time_series_betas",
 ]
 
-# Assets per block in the rolling computation: about 27 arrays of T x CHUNK floats live
-# at once, so 600 months x 1,000 assets stays near 130 MB whatever N is.
-_CHUNK = 1000
+# Series per block in the rolling computation: the block's moments (T x CHUNK x Q floats,
+# Q = 27 with five factors, 4 MB for 600 months) stay in cache, and memory is bounded
+# whatever N is.
+_CHUNK = 64
+_THREADS = min(2, os.cpu_count() or 1)
 
 
 # --------------------------------------------------------------------------- helpers
@@ -97,7 +101,7 @@ def _as_frame(data: pd.DataFrame | pd.Series, what: str) -> pd.DataFrame:
 
 def _align(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame,
            what: str = "returns") -> tuple[pd.PeriodIndex, np.ndarray, np.ndarray, list[str], list[str]]:
-    """Inner join on dates; drop dates with no return at all; factors must be complete there."""
+    """Inner join on dates; factors must be complete on every date with a return."""
     ret = _as_frame(returns, what)
     fac = _as_frame(factors, "factors")
     if fac.shape[1] == 0:
@@ -107,11 +111,15 @@ def _align(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame,
                          file=what, fix="Use one frequency for every input.")
     dates = ret.index.intersection(fac.index).sort_values()
     ret = ret.loc[dates]
-    keep = ret.notna().any(axis=1).to_numpy()
+    fac = fac.loc[dates]
+    # Months without any return and with blank factors carry no information: drop them.
+    # Months without returns but with factors stay, so windows and HAC lags keep
+    # counting calendar months.
+    keep = (ret.notna().any(axis=1) | fac.notna().all(axis=1)).to_numpy()
     dates = dates[keep]
     ret = ret.loc[dates]
     fac = fac.loc[dates]
-    if len(dates) == 0:
+    if len(dates) == 0 or not ret.notna().any().any():
         raise InputError(f"{what} and factors share no date with a return.", file=what,
                          fix="Check that both files cover the same months.")
     missing = fac.isna().to_numpy()
@@ -130,34 +138,38 @@ def _spd_solve(a: list[list[np.ndarray]], b: list[np.ndarray]) -> list[np.ndarra
 
     ``a[i][j]`` (i >= j used) and ``b[i]`` are arrays of one common shape, one entry per
     system; Cholesky A = L L' then two triangular solves, looping over K only.  Systems
-    that are not positive definite give NaN.
+    that are not positive definite give NaN.  Works in place: ``a`` and ``b`` are
+    overwritten.
     """
     k = len(b)
     low: list[list[np.ndarray | None]] = [[None] * k for _ in range(k)]
     with np.errstate(invalid="ignore", divide="ignore"):
         for j in range(k):
-            d = a[j][j].copy()
+            d = a[j][j]
             for m in range(j):
                 d -= low[j][m] * low[j][m]
             d[~(d > 0)] = np.nan
             low[j][j] = np.sqrt(d)
             for i in range(j + 1, k):
-                s = a[i][j].copy()
+                s = a[i][j]
                 for m in range(j):
                     s -= low[i][m] * low[j][m]
-                low[i][j] = s / low[j][j]
+                s /= low[j][j]
+                low[i][j] = s
         z: list[np.ndarray] = []
         for i in range(k):
-            s = b[i].copy()
+            s = b[i]
             for m in range(i):
                 s -= low[i][m] * z[m]
-            z.append(s / low[i][i])
+            s /= low[i][i]
+            z.append(s)
         x: list[np.ndarray | None] = [None] * k
         for i in reversed(range(k)):
-            s = z[i].copy()
+            s = z[i]
             for m in range(i + 1, k):
                 s -= low[m][i] * x[m]
-            x[i] = s / low[i][i]
+            s /= low[i][i]
+            x[i] = s
     return x  # type: ignore[return-value]
 
 
@@ -408,8 +420,9 @@ def _window_sum(a: np.ndarray, window: int) -> np.ndarray:
     c = np.cumsum(a, axis=0)
     if window >= a.shape[0]:
         return c
-    out = c.copy()
-    out[window:] -= c[:-window]
+    out = np.empty_like(c)
+    out[:window] = c[:window]
+    np.subtract(c[window:], c[:-window], out=out[window:])
     return out
 
 
@@ -417,27 +430,48 @@ def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int) -> 
     """Rolling betas of one block of series on centred factors: (T, n, K) and counts (T, n).
 
     Window moments S_ff - s_f s_f'/n and S_fy - s_f s_y/n give the slope of the OLS on
-    [1, f] (the intercept partialled out, Frisch-Waugh-Lovell).
+    [1, f] (the intercept partialled out, Frisch-Waugh-Lovell).  All moments of the block
+    sit in one (Q, T, n) array so one cumulative sum serves them all.
     """
     mask = np.isfinite(y)
-    m = mask.astype(float)
     y0 = np.where(mask, y, 0.0)
+    t, n = y.shape
     k = fc.shape[1]
-    cnt = _window_sum(m, window)
-    s_y = _window_sum(y0, window)
-    s_f = [_window_sum(m * fc[:, j, None], window) for j in range(k)]
+    pairs = [(i, j) for i in range(k) for j in range(i + 1)]
+    # Factor-side terms: 1, f_j, f_i f_j (weighted by the mask); return-side: 1, f_j (by y).
+    g_mask = np.column_stack([np.ones(t), fc] + [fc[:, i] * fc[:, j] for i, j in pairs])
+    g_ret = np.column_stack([np.ones(t), fc])
+    q = g_mask.shape[1]
+    m = mask.astype(float)
+    mom = np.empty((q + g_ret.shape[1], t, n))
+    for r in range(q):  # loops over moments (<= 27), each vectorised over months and series
+        np.multiply(m, g_mask[:, r, None], out=mom[r])
+    for r in range(g_ret.shape[1]):
+        np.multiply(y0, g_ret[:, r, None], out=mom[q + r])
+    np.cumsum(mom, axis=1, out=mom)
+    if window < t:
+        mom[:, window:] -= mom[:, :-window].copy()
+    cnt = mom[0]
+    s_f = [mom[1 + j] for j in range(k)]
+    s_y = mom[q]
     with np.errstate(invalid="ignore", divide="ignore"):
         inv_n = 1.0 / cnt
-        a = [[None] * k for _ in range(k)]
-        for i in range(k):
-            for j in range(i + 1):
-                s_ff = _window_sum(m * (fc[:, i] * fc[:, j])[:, None], window)
-                a[i][j] = s_ff - s_f[i] * s_f[j] * inv_n
-        b = [_window_sum(y0 * fc[:, j, None], window) - s_f[j] * s_y * inv_n for j in range(k)]
+        mean_f = [sf * inv_n for sf in s_f]
+        a: list[list[np.ndarray]] = [[None] * k for _ in range(k)]  # type: ignore[list-item]
+        for p_, (i, j) in enumerate(pairs):
+            s_ff = mom[1 + k + p_]
+            s_ff -= s_f[i] * mean_f[j]
+            a[i][j] = s_ff
+        b = []
+        for j in range(k):
+            s_fy = mom[q + 1 + j]
+            s_fy -= mean_f[j] * s_y
+            b.append(s_fy)
+    counts = np.rint(cnt).astype(np.int64)
     x = _spd_solve(a, b)
     out = np.stack(x, axis=-1)
-    out[cnt < max(min_obs, k + 2)] = np.nan
-    return out, cnt.astype(np.int64)
+    out[counts < max(min_obs, k + 2)] = np.nan
+    return out, counts
 
 
 def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
@@ -464,10 +498,21 @@ def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
     fc = f - f.mean(axis=0)
     values = np.empty((t, n, k))
     counts = np.empty((t, n), dtype=np.int64)
-    for start in range(0, n, _CHUNK):  # blocks of series bound the memory, not a hot loop
+
+    def run(start: int) -> None:
         stop = min(start + _CHUNK, n)
         values[:, start:stop], counts[:, start:stop] = _rolling_block(y[:, start:stop], fc,
                                                                       int(window), int(min_obs))
+
+    # Blocks of series bound the memory and stay in cache; numpy releases the GIL inside
+    # each block, so two threads use two cores.  Results do not depend on the threading.
+    starts = range(0, n, _CHUNK)
+    if len(starts) >= 4 and _THREADS > 1:
+        with ThreadPoolExecutor(max_workers=_THREADS) as pool:
+            list(pool.map(run, starts))
+    else:
+        for start in starts:
+            run(start)
     return RollingBetas(values, dates, tuple(names), tuple(fnames), counts, int(window), int(min_obs))
 
 
