@@ -70,7 +70,7 @@ _SOLVER_OPTIONS: dict[str, dict[str, Any]] = {
     "OSQP": {"eps_abs": 1e-9, "eps_rel": 1e-9, "polish": True, "max_iter": 200_000},
     "SCS": {"eps_abs": 1e-8, "eps_rel": 1e-8, "max_iters": 200_000},
 }
-_CONIC_ONLY = {"OSQP"}          # cannot take second-order cones (robust option)
+_QP_ONLY = {"OSQP"}              # cannot take second-order cones (robust option)
 _ACTIVE_TOL = 1e-6              # a limit "binds" when the solution sits this close to it
 _REACH_TOL = 1e-7               # slack below this (beta units) counts as reached
 
@@ -374,7 +374,7 @@ class OverlayProblem:
         """Solve with CLARABEL, then the other solvers; return (outcome, solver name)."""
         last = ""
         for solver in _installed_solvers():
-            if self.structure.robust and solver in _CONIC_ONLY:
+            if self.structure.robust and solver in _QP_ONLY:
                 continue
             last = solver
             try:
@@ -930,7 +930,7 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
                     objective_value = closest_value
                     message = (f"Targets for {unreachable} cannot be reached; the positions are "
                                "the closest overlay (least remaining exposure, then least "
-                               "tracking variance).")
+                               f"{spec.objective} variance).")
                 else:
                     message = (f"Targets for {unreachable} cannot be reached with these "
                                "instruments and limits; no overlay proposed (closest=True "
@@ -942,8 +942,8 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
                                   b_p[k_idx] + B[:, k_idx].T @ h_act)
         message = message or "Targets reached at minimum " + (
             "tracking variance." if spec.objective == "tracking" else "total variance.")
-        if spec.objective == "total" and objective_value is not None:
-            objective_value += float(book_variance)
+    if spec.objective == "total" and objective_value is not None:
+        objective_value += float(book_variance)       # the constant the program leaves out
 
     # ---- robust vs nominal size
     robust_ratio = None
