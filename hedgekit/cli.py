@@ -56,6 +56,8 @@ def build_parser() -> argparse.ArgumentParser:
     common.add_argument("--json", action="store_true", help="print one JSON object on stdout")
     common.add_argument("--debug", action="store_true", help="show the traceback on errors")
     common.add_argument("--out", metavar="DIR", help="also write this command's tables as CSV into DIR")
+    common.add_argument("--as-of", metavar="PERIOD", dest="as_of",
+                        help="use data up to this period only (e.g. 2025-09): re-create an earlier quarter's run")
     parser = argparse.ArgumentParser(
         prog="hedgekit",
         description="Exposures of a book to state-variable innovations, their prices of risk, "

@@ -70,6 +70,8 @@ def _write_tables(args, tables: dict[str, pd.DataFrame]) -> None:
 def _load(args, command: str):
     config = load_config(args.config)
     data = load_dataset(config, need=NEEDS.get(command))
+    if getattr(args, "as_of", None):
+        data = data.as_of(args.as_of)
     for w in data.warnings:
         _note(f"note: {w}")
     return config, data
@@ -176,9 +178,28 @@ def cmd_backtest(args):
 
 # --------------------------------------------------------------------------- whole job
 
-def _whole_job(args, config_path: Path):
+def _previous_quarter(data) -> str:
+    """The period one quarter before the last month of the states (or factors) file."""
+    frame = data.states if data.states is not None else data.factors
+    last = frame.dropna(how="all").index[-1]
+    return str(last - (3 if data.frequency == "monthly" else 1))
+
+
+def _record_earlier_run(config, data, as_of: str) -> None:
+    """Run the job as of an earlier quarter and store it, so history has a comparison."""
+    from .store import RunStore
+    run = pipeline.run_all(config, data=data.as_of(as_of))
+    RunStore(Path(config["store"]["path"])).record(run.to_dict(), config.text, None)
+    _note(f"... stored the run as of {as_of} for the quarter-on-quarter comparison")
+
+
+def _whole_job(args, config_path: Path, *, earlier: bool = False):
     config = load_config(config_path)
     data = load_dataset(config)
+    if earlier and config["store"]["enabled"] and not getattr(args, "no_store", False):
+        _record_earlier_run(config, data, _previous_quarter(data))
+    if getattr(args, "as_of", None):
+        data = data.as_of(args.as_of)
     for w in data.warnings:
         _note(f"note: {w}")
     with display.progress_bar("walk-forward") as tick:
@@ -223,7 +244,7 @@ def cmd_demo(args):
     folder = Path(args.dir)
     config_path = write_scenario(folder)
     _note(f"demo scenario (invented, simulated) written to {folder}/")
-    return _whole_job(args, config_path)
+    return _whole_job(args, config_path, earlier=True)
 
 
 def cmd_history(args):

@@ -11,7 +11,7 @@ from __future__ import annotations
 import hashlib
 import re
 from collections.abc import Iterable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -43,6 +43,27 @@ class Dataset:
     periods_per_year: int = 12
     warnings: tuple[str, ...] = ()
     hashes: dict[str, str] = field(default_factory=dict)
+
+    def as_of(self, date: str | pd.Period) -> Dataset:
+        """The same data cut at ``date`` (inclusive): a run as it would have been made then."""
+        freq = FREQ[self.frequency]
+        try:
+            cut = pd.Period(str(date), freq=freq)
+        except (ValueError, TypeError):
+            raise InputError(f"--as-of {date!r} is not a period like 2025-09.", column="as_of") from None
+        frames = {}
+        for name in ("states", "assets", "instruments", "factors", "portfolio_returns"):
+            frame = getattr(self, name)
+            if frame is not None:
+                attrs = dict(frame.attrs)
+                frame = frame.loc[frame.index <= cut]
+                frame.attrs.update(attrs)
+                if frame.dropna(how="all").empty:
+                    raise InputError(f"no {name} data on or before {cut}.", file=attrs.get("file"),
+                                     fix="choose a later --as-of date.")
+            frames[name] = frame
+        hashes = dict(self.hashes, as_of=str(cut))
+        return replace(self, hashes=hashes, **frames)
 
     def summary(self) -> dict:
         """A short description for the terminal and the report."""
