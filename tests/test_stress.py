@@ -255,3 +255,29 @@ def test_plausibility_columns():
     floor = np.sqrt(sj @ np.linalg.solve(SIGMA.to_numpy()[np.ix_(j, j)], sj))
     assert t.loc["comove", "mahalanobis"] == pytest.approx(floor, rel=1e-9)
     assert t.loc["isolated", "mahalanobis"] >= t.loc["comove", "mahalanobis"]
+
+
+def test_interval_coverage_monte_carlo(demo_sample):
+    """Monte Carlo (seeded): 200 books with the true demo betas and iid noise on the demo's
+    own factors; betas and OLS errors from hedgekit.exposures.time_series_betas; the 95 %
+    scenario interval under the independence assumption covers the true P&L b'M s in
+    about 95 % of books for every built-in scenario (binomial sd 1.5 %)."""
+    from hedgekit.exposures import time_series_betas
+
+    _, factors, _ = demo_sample
+    rng = np.random.default_rng(20261201)
+    n_books = 200
+    f = factors.to_numpy()
+    noise = rng.normal(0.0, 0.02, (len(f), n_books))
+    books = pd.DataFrame(f @ BOOK.to_numpy()[:, None] + noise, index=factors.index)
+    books.columns = [f"book_{i}" for i in range(n_books)]
+    est = time_series_betas(books, factors)
+    truth_pnl = run_stress(BOOK, M, SIGMA, nav=NAV).table["unhedged"].to_numpy()
+    hits = []
+    for name in books.columns:    # one stress run per simulated book
+        res = run_stress(est.betas.loc[name], M, SIGMA, nav=NAV, book_se=est.se_ols.loc[name])
+        t = res.table
+        hits.append((t["unhedged_lo"].to_numpy() <= truth_pnl)
+                    & (truth_pnl <= t["unhedged_hi"].to_numpy()))
+    coverage = np.mean(hits, axis=0)
+    assert np.all(coverage > 0.9) and np.all(coverage < 0.99), coverage
