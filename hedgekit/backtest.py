@@ -25,8 +25,9 @@ value dated after τ cannot change the decision made at τ (the tests check this
 
 Evaluation, on the out-of-sample months (after the first rebalance):
 
-* realised exposures: OLS of the unhedged and hedged returns on the real-time factors of
-  those months, HAC errors (Newey and West 1987, Econometrica), normal intervals;
+* realised exposures: OLS of the unhedged and hedged returns (book + overlay, gross of
+  costs) on the real-time factors of those months, HAC errors (Newey and West 1987,
+  Econometrica), normal intervals at ``confidence`` (the spec's by default);
 * hedge effectiveness on the state-driven P&L b' f_t:
   ``1 - b_h' S_f b_h / b_u' S_f b_u`` with S_f the sample covariance of the out-of-sample
   factors and b_u, b_h the realised exposures; ``effectiveness_neutralised`` restricts b
