@@ -12,14 +12,16 @@ deficient design are skipped and counted.
 * Shanken 1992 (RFS), Cochrane 2005 eq. 12.19, with full-sample betas:
   Var(lambda) = [(X'X)^{-1} X' Sigma X (X'X)^{-1} (1 + c) + Sigma~_f] / T,
   c = lambda_f' Sigma_f^{-1} lambda_f, Sigma~_f = blockdiag(0, Sigma_f).  Sigma is the
-  residual covariance of the time-series regressions, pairwise on common months with
-  divisor n_ij; Sigma_f the factor covariance with divisor T (both maximum likelihood, as
-  in Shanken 1992), over the months used.  With rolling betas the multiplier form
+  residual covariance of the time-series regressions, sum over common months divided by
+  sqrt(n_i n_j) (e'e/T on a balanced panel, positive semi-definite otherwise); Sigma_f
+  the factor covariance with divisor T (both maximum likelihood, as in Shanken 1992),
+  over the months used.  With rolling betas the multiplier form
   (1 + c)(V_FM - Sigma~_f/T) + Sigma~_f/T, labelled approximate.
 * Cross-sectional R² = 1 - var(alpha-bar)/var(R-bar) (Jagannathan and Wang 1996, JF);
   pricing-error test alpha-bar' cov(alpha-bar)^+ alpha-bar ~ chi²(N - K - 1) with
   cov(alpha-bar) = sum_t (alpha_t - alpha-bar)(alpha_t - alpha-bar)' / T² (pairwise
-  n_i n_j with missing returns), plain and divided by (1 + c).
+  n_i n_j with missing returns; df = rank when there are more assets than months),
+  plain and divided by (1 + c).
 * GRS (Gibbons, Ross and Shanken 1989, Econometrica) when every factor is traded:
   (T/N)((T-N-K)/(T-K-1)) alpha' Sigma^{-1} alpha / (1 + mu' Omega^{-1} mu) ~ F(N, T-N-K),
   Sigma with divisor T-K-1 and Omega with divisor T (this equals Cochrane 2005 eq. 12.6
@@ -121,17 +123,38 @@ def _chi2_test(stat: float, df: int) -> dict:
     return {"stat": float(stat), "df": int(df), "pvalue": p}
 
 
-def _residual_cov(y: np.ndarray, b: np.ndarray, f: np.ndarray) -> np.ndarray:
-    """Pairwise residual covariance of R_i - a_i - b_i'f with divisor n_ij (ML)."""
+def _scaled_residuals(y: np.ndarray, b: np.ndarray, f: np.ndarray) -> np.ndarray:
+    """Residuals e_ti of R_i - a_i - b_i'f, demeaned on each asset's months, zero where
+    missing, and divided by sqrt(n_i), so that Sigma = E'E.
+
+    Sigma_ij = sum over common months of e_ti e_tj / sqrt(n_i n_j): e'e/T (maximum
+    likelihood) on a balanced panel, positive semi-definite on an unbalanced one (the
+    divisor n_ij need not be), and X' Sigma X = (E X)'(E X) costs O(T N K), not O(T N²).
+    """
     mask = np.isfinite(y)
-    e = y - f @ b.T
-    n_i = mask.sum(axis=0)
-    e = np.where(mask, e, 0.0)
-    e = np.where(mask, e - e.sum(axis=0) / np.maximum(n_i, 1), 0.0)
-    m = mask.astype(float)
-    n_ij = m.T @ m
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return (e.T @ e) / n_ij
+    n_i = np.maximum(mask.sum(axis=0), 1)
+    e = np.where(mask, y - f @ b.T, 0.0)
+    e = np.where(mask, e - e.sum(axis=0) / n_i, 0.0)
+    return e / np.sqrt(n_i)
+
+
+def _pinv_quadratic(e: np.ndarray, v: np.ndarray, rtol: float = 1e-10) -> tuple[float, int]:
+    """v' (E'E)^+ v and the rank of E'E, from the smaller Gram matrix of E (T x N).
+
+    Eigenvalues below rtol times the largest are treated as zero (as numpy's pinv
+    with rcond=rtol on E'E).
+    """
+    t, n = e.shape
+    if n <= t:
+        w, u = np.linalg.eigh(e.T @ e)
+        keep = w > rtol * w.max()
+        z = u[:, keep].T @ v
+        return float(z @ (z / w[keep])), int(keep.sum())
+    # E'E = V S² V' with V = E'U S^-1 from the T x T Gram E E' = U S² U'.
+    w, u = np.linalg.eigh(e @ e.T)
+    keep = w > rtol * w.max()
+    z = u[:, keep].T @ (e @ v)
+    return float(z @ (z / w[keep] ** 2)), int(keep.sum())
 
 
 def _grs(y: np.ndarray, f: np.ndarray) -> dict | None:
@@ -281,10 +304,14 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
         abar = np.nansum(np.where(vu, alpha_t, 0.0), axis=0) / n_i
         rbar = np.where(vu, yu, 0.0).sum(axis=0) / n_i
     r2_cs = float(1.0 - np.var(abar[live]) / np.var(rbar[live]))
-    d = np.where(vu, alpha_t - abar, 0.0)[:, live]
-    cov_a = (d.T @ d) / np.outer(n_i[live], n_i[live])
-    stat = float(abar[live] @ np.linalg.pinv(cov_a, rcond=1e-10, hermitian=True) @ abar[live])
+    # cov(alpha-bar)_ij = sum_t d_ti d_tj / (n_i n_j) = (E'E)_ij with E = d / n.
+    d = np.where(vu, alpha_t - abar, 0.0)[:, live] / n_i[live]
+    stat, rank = _pinv_quadratic(d, abar[live])
     df = int(live.sum()) - p
+    if rank < df:
+        notes.append(f"pricing-error covariance has rank {rank} < N - K - 1 = {df} "
+                     "(more assets than months): the test uses df = rank.")
+        df = rank
     pe_test = _chi2_test(stat, df)
 
     # Shanken.
@@ -300,6 +327,7 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
         if rolling:
             cov_sh = (1.0 + c) * (cov_fm - tilde / t_used) + tilde / t_used
         else:
+            xtx_inv = np.linalg.inv(x.T @ x)
             if resid_cov is not None:
                 sig = pd.DataFrame(resid_cov).astype(float)
                 sig.index, sig.columns = sig.index.map(str), sig.columns.map(str)
@@ -308,12 +336,10 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
                 except KeyError as exc:
                     raise InputError("resid_cov does not cover every asset.", column="resid_cov",
                                      fix="Pass the residual covariance of the same assets.") from exc
+                sandwich = xtx_inv @ x.T @ sig @ x @ xtx_inv
             else:
-                fall = fac.loc[dates].to_numpy(dtype=float)
-                sig = _residual_cov(y, bmat, fall)
-                sig = np.where(np.isfinite(sig), sig, 0.0)
-            xtx_inv = np.linalg.inv(x.T @ x)
-            sandwich = xtx_inv @ x.T @ sig @ x @ xtx_inv
+                ex = _scaled_residuals(y, bmat, fac.loc[dates].to_numpy(dtype=float)) @ x
+                sandwich = xtx_inv @ (ex.T @ ex) @ xtx_inv
             cov_sh = (sandwich * (1.0 + c) + tilde) / t_used
     else:
         notes.append("no factors given: Shanken errors and GRS not computed.")

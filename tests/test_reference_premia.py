@@ -128,6 +128,9 @@ def test_shanken_matches_textbook_formula(intercept):
     np.testing.assert_allclose(res.se_shanken.to_numpy(), np.sqrt(np.diag(var)), rtol=1e-10)
     assert res.shanken_c == pytest.approx(c, rel=1e-12)
     assert not res.shanken_approximate
+    given = fama_macbeth(r, time_series_betas(r, f).betas, factors=f, intercept=intercept,
+                         resid_cov=pd.DataFrame(sigma, index=r.columns, columns=r.columns))
+    np.testing.assert_allclose(given.se_shanken.to_numpy(), np.sqrt(np.diag(var)), rtol=1e-10)
 
 
 def test_grs_and_pricing_error_test_match_textbook_forms():
