@@ -41,6 +41,16 @@ from scipy import stats
 
 from hedgekit.errors import InputError
 
+__all__ = [
+    "BUILTIN_SCENARIOS",
+    "READINGS",
+    "StressResult",
+    "historical_replay",
+    "overlay_exposure",
+    "run_stress",
+    "scenario_shocks",
+]
+
 READINGS = ("isolated", "comove")
 
 #: Built-in scenarios in natural units (decimals).  Sizes are round, familiar stress moves
