@@ -207,6 +207,11 @@ def _whole_job(args, config_path: Path, *, earlier: bool = False):
                                closest=getattr(args, "closest", False), progress=lambda s: _note(f"... {s}"),
                                backtest_progress=tick)
     payload = run.to_dict()
+    store = None
+    if config["store"]["enabled"] and not getattr(args, "no_store", False):
+        from .store import RunStore
+        store = RunStore(Path(config["store"]["path"]))
+        payload["history"] = store.compare_with_previous(payload, config["store"]["change_threshold"])
     report_paths = {}
     try:
         from .report import write_report
@@ -215,9 +220,7 @@ def _whole_job(args, config_path: Path, *, earlier: bool = False):
         payload["report"] = {k: str(v) for k, v in report_paths.items()}
     except ImportError:  # pragma: no cover - report module always ships
         pass
-    if config["store"]["enabled"] and not getattr(args, "no_store", False):
-        from .store import RunStore
-        store = RunStore(Path(config["store"]["path"]))
+    if store is not None:
         run_id = store.record(payload, config.text, str(report_paths.get("html", "")))
         payload["run_id"] = run_id
     if not args.json:

@@ -413,6 +413,12 @@ def show_run(con: Console, run, payload: Mapping) -> None:
                   f"(neutralised factors {fmt(bt.effectiveness_neutralised, 1, pct=True)}); realised vs predicted "
                   f"tracking error {fmt(bt.realised_tracking_error, 2, pct=True)} vs "
                   f"{fmt(bt.predicted_tracking_error, 2, pct=True)}.")
+    hist = payload.get("history")
+    if hist:
+        changes = hist.get("changes") or []
+        text = "; ".join(f"{c['quantity']} {c['name']} {fmt(c['before'], 3)} -> {fmt(c['after'], 3)}" for c in changes)
+        con.print(f"Since the run on data to {hist['previous_sample_end']}: "
+                  + (f"large changes: {text}." if changes else "no large changes in exposures, premia or overlay."))
     for w in payload.get("warnings", []):
         con.print(f"note: {w}")
     _heading(con, "Detail")

@@ -130,6 +130,13 @@ def hedge_spec(config: Config, data: Dataset):
     if unknown:
         raise InputError(f"[hedge] exclude names {unknown[0]!r}, not an instrument of the sheet "
                          f"({', '.join(data.sheet.index)}).", file=_cfg_file(config))
+    tol = h["tolerance"]
+    if h["robust"] and h["neutralise"]:
+        zero = [f for f in h["neutralise"] if (tol.get(f, 0.0) if isinstance(tol, Mapping) else tol) <= 0]
+        if zero:
+            raise InputError(f"[hedge] robust = true needs a positive tolerance for {', '.join(zero)}: the book's "
+                             "own beta is uncertain, so no overlay can hold it at exactly zero across the "
+                             "confidence region.", file=_cfg_file(config), fix="set e.g. tolerance = 0.05.")
     return HedgeSpec.from_sheet(data.sheet.reset_index(), neutralise=h["neutralise"], targets=dict(h["targets"]),
                                 tolerance=dict(h["tolerance"]) if isinstance(h["tolerance"], Mapping)
                                 else h["tolerance"],

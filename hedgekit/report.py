@@ -827,6 +827,32 @@ def _stage_warnings(run: Mapping) -> list[str]:
     return list(dict.fromkeys(out))
 
 
+def _history_section(run: Mapping) -> Section | None:
+    """Quarter on quarter: this run against the previous stored run of the same book."""
+    hist = run.get("history") or None
+    if not hist:
+        return None
+    prev = str(hist.get("previous_sample_end") or DASH)
+    now = str((run.get("meta") or {}).get("sample_end") or DASH)
+    blocks: list[Block] = []
+    for key, title in (("exposure", "Book exposure"), ("hedge", "Overlay weight (of NAV)")):
+        rows = []
+        for name, v in (hist.get(key) or {}).items():
+            b, a = _num(v.get("before")), _num(v.get("after"))
+            rows.append((str(name), fmt(b), fmt(a), fmt(None if a is None or b is None else a - b, plus=True)))
+        if rows:
+            blocks.append(Table(("Name", f"Data to {prev}", f"Data to {now}", "Change"), tuple(rows),
+                                caption=title, numeric=(False, True, True, True)))
+    changes = hist.get("changes") or []
+    if changes:
+        blocks.append(Bullets(tuple(f"{c.get('quantity')} {c.get('name')}: {fmt(c.get('before'))} to "
+                                    f"{fmt(c.get('after'))} (limit {fmt(c.get('limit'))})" for c in changes)))
+    else:
+        blocks.append(Para("No exposure, price of risk or overlay weight moved beyond the change limits "
+                           "since the previous run."))
+    return Section("history", f"Since the previous run (data to {prev})", tuple(blocks))
+
+
 def _diagnostics(run: Mapping) -> Section | None:
     blocks: list[Block] = []
     states = run.get("states") or {}
@@ -936,7 +962,7 @@ def build_document(run: Mapping) -> Document:
                 f"{meta.get('sample_end', DASH)}")
     builders: tuple[Callable[[Mapping], Section | None], ...] = (
         _summary, _exposure_section, _rolling_section, _premia_section, _hedge_section,
-        _stress_section, _backtest_section, _diagnostics)
+        _stress_section, _backtest_section, _history_section, _diagnostics)
     sections = [s for s in (b(run) for b in builders) if s is not None]
     sections.append(Section("methods", "Methods and sources", (Bullets(METHODS),)))
     extra = [str(c) for c in (run.get("cautions") or [])]

@@ -233,6 +233,32 @@ class RunStore:
         order = base + [c for c in seen if c not in base]
         return frame[order].reset_index(drop=True)
 
+    def compare_with_previous(self, run: Mapping[str, Any], threshold: float = 0.2, *,
+                              premium_se_multiple: float = 2.0) -> dict[str, Any] | None:
+        """How ``run`` differs from the latest stored run of the same book with an earlier sample end.
+
+        Returns ``None`` when there is none; else ``previous_run_id``, ``previous_sample_end``,
+        ``exposure`` and ``hedge`` ({name: {before, after}}) and ``changes`` (the flags of
+        :meth:`flag_changes` for this pair).
+        """
+        meta = run.get("meta") or {}
+        end = meta.get("sample_end")
+        earlier = [r for r in self.history(str(meta.get("fund") or ""))
+                   if r.sample_end is not None and end is not None and str(r.sample_end) < str(end)]
+        if not earlier:
+            return None
+        prev = earlier[-1]
+
+        def pairs(stage: str, key: str) -> dict[str, dict[str, float]]:
+            before = _section(prev.run, stage).get(key) or {}
+            after = _section(run, stage).get(key) or {}
+            return {str(k): {"before": _num(before.get(k)), "after": _num(after.get(k))}
+                    for k in dict.fromkeys([*before, *after])}
+
+        return _clean({"previous_run_id": prev.run_id, "previous_sample_end": prev.sample_end,
+                       "exposure": pairs("exposures", "portfolio"), "hedge": pairs("hedge", "positions"),
+                       "changes": _changes(prev.run, run, threshold, premium_se_multiple)})
+
     def flag_changes(self, threshold: float = 0.2, *, fund: str | None = None,
                      premium_se_multiple: float = 2.0) -> pd.DataFrame:
         """Large changes of a book from one stored run to its next (by sample end).

@@ -68,6 +68,10 @@ def test_demo_whole_job_json_has_every_contract_key(demo_run):
     assert len(bt["rebalance_dates"]) == len(bt["decisions"]) > 10
     assert payload["cautions"] and "not investment advice" in payload["cautions"][0]
     assert "report" in payload and Path(payload["report"]["html"]).exists()
+    # the demo stores the previous quarter first, so the run is compared with it
+    assert payload["history"]["previous_sample_end"] == "2025-09"
+    assert set(payload["history"]["exposure"]) == set(ex["factors"])
+    assert "Since the previous run" in Path(payload["report"]["html"]).read_text()
 
 
 def test_demo_report_and_store_exist(demo_run):
@@ -116,6 +120,22 @@ def test_unreachable_hedge_exits_3_and_names_factor(tmp_path, capsys):
     assert payload["status"] == "unreachable"
     assert set(payload["unreachable"]) & {"term", "def"}
     assert "not reachable" in captured.err
+
+
+def test_as_of_cuts_the_sample(tmp_path, capsys):
+    cfg = demo_copy(tmp_path)
+    assert main(["exposures", str(cfg), "--json", "--as-of", "2020-06"]) == 0
+    payload = json.loads(capsys.readouterr().out)
+    assert payload["rolling"]["dates"][-1] == "2020-06"
+    assert main(["exposures", str(cfg), "--as-of", "June"]) == 2
+    assert "--as-of" in capsys.readouterr().err
+
+
+def test_robust_with_zero_tolerance_is_a_config_error(tmp_path, capsys):
+    cfg = demo_copy(tmp_path)
+    cfg.write_text(cfg.read_text().replace("max_gross = 1.5", "max_gross = 1.5\nrobust = true"))
+    assert main(["hedge", str(cfg)]) == 2
+    assert "positive tolerance" in capsys.readouterr().err
 
 
 def test_version_and_help():
