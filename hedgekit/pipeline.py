@@ -207,8 +207,10 @@ def run_backtest_stage(config: Config, data: Dataset, exposures, *, progress=Non
     spec = hedge_spec(config, data)
     window = None if b["window"] == "expanding" else int(b["window"])
     return walk_forward(data.states, _book_returns(data, exposures), data.instruments, data.sheet, spec=spec,
-                        nav=config["portfolio"]["nav"], lags=st["lags"] if isinstance(st["lags"], int) else 1,
-                        min_window=b["min_months"], window=window,
+                        nav=config["portfolio"]["nav"], lags=st["lags"],
+                        min_window=b["min_months"], window=window, beta_min_obs=config["exposures"]["min_obs"],
+                        hac_lags=config["exposures"]["hac_lags"], asset_returns=data.assets,
+                        nw_lags=config["premia"]["nw_lags"], premia_intercept=config["premia"]["intercept"],
                         beta_window=_window(config), rebalance=rebalance or b["rebalance"], start=b["start"],
                         periods_per_year=data.periods_per_year,
                         covariance_method=config["hedge"]["covariance"], progress=progress)
