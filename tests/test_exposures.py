@@ -209,3 +209,30 @@ def test_window_covering_sample_equals_full_sample():
     full = time_series_betas(r, f)
     roll = rolling_betas(r, f, window=len(r), min_obs=10)
     np.testing.assert_allclose(roll.values[-1], full.betas.to_numpy(), atol=1e-11)
+
+
+def test_quarterly_panel_and_series_input():
+    """Quarterly PeriodIndex works like monthly; a Series is one series; mixed frequencies fail."""
+    r, f, b = _panel(9, t=80, n=3)
+    rq = r.copy()
+    fq = f.copy()
+    rq.index = pd.period_range("1990Q1", periods=80, freq="Q", name="date")
+    fq.index = rq.index
+    est = time_series_betas(rq, fq, hac_lags=2)
+    np.testing.assert_allclose(est.betas.to_numpy(), time_series_betas(r, f, hac_lags=2).betas.to_numpy())
+    one = time_series_betas(rq["a0"], fq)
+    assert list(one.betas.index) == ["a0"]
+    with pytest.raises(InputError, match="frequency"):
+        time_series_betas(rq, f)
+
+
+def test_with_estimated_states_factors(scenario):
+    """End to end on the demo with factors from hedgekit.states (VAR(1), Gram-Schmidt)."""
+    from hedgekit.states import estimate_states
+
+    factors = estimate_states(scenario["states"], lags=1).factors()
+    res = estimate_exposures(factors, scenario["assets"], holdings=scenario["holdings"],
+                             instruments=scenario["instruments"])
+    book_truth = pd.Series(scenario["truth"]["book_betas"])[list(res.factors)]
+    assert float(((res.book - book_truth) / res.book_se).abs().max()) < 4.0
+    json.dumps(res.to_dict(), allow_nan=False)
