@@ -206,7 +206,7 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
     notes: list[str] = []
     rolling = isinstance(betas, RollingBetas)
     if rolling:
-        rb = betas if betas.is_lagged else betas.lagged()
+        rb = betas
         fnames = [str(f) for f in rb.factors]
         assets = [str(s) for s in rb.series]
         missing = [a for a in assets if a not in ret.columns]
@@ -214,8 +214,10 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
             raise InputError(f"rolling betas for '{missing[0]}' but no returns for it.",
                              file="assets", column=missing[0], fix="Estimate betas on the same assets.")
         dates = ret.index.intersection(rb.dates).sort_values()
-        pos = rb.dates.get_indexer(dates)
-        bvals = rb.values[pos]
+        # Month t takes the window ending at t-1 (what lagged() gives), read in place.
+        src = rb.dates.get_indexer(dates) - (0 if rb.is_lagged else 1)
+        bvals = rb.values[np.maximum(src, 0)]
+        bvals[src < 0] = np.nan
     elif isinstance(betas, pd.DataFrame):
         bframe = betas.astype(float)
         bframe.index = bframe.index.map(str)
@@ -256,12 +258,20 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
 
     # Cross-sections, batched over months.
     if rolling:
-        x = np.concatenate([np.ones((t_all, n, 1)), bvals], axis=2) if intercept else bvals.copy()
-        valid = np.isfinite(y) & np.isfinite(x).all(axis=2)
-        xm = np.where(valid[..., None], x, 0.0)
+        valid = np.isfinite(y) & np.isfinite(bvals).all(axis=2)
+        bm = np.where(valid[..., None], bvals, 0.0)
         y0 = np.where(valid, y, 0.0)
-        xtx = np.matmul(xm.transpose(0, 2, 1), xm)
-        xty = np.einsum("tnp,tn->tp", xm, y0)
+        btb = np.matmul(bm.transpose(0, 2, 1), bm)
+        bty = np.einsum("tnk,tn->tk", bm, y0)
+        if intercept:
+            s_b = bm.sum(axis=1)
+            xtx = np.empty((t_all, p, p))
+            xtx[:, 0, 0] = valid.sum(axis=1)
+            xtx[:, 0, 1:] = xtx[:, 1:, 0] = s_b
+            xtx[:, 1:, 1:] = btb
+            xty = np.column_stack([y0.sum(axis=1), bty])
+        else:
+            xtx, xty = btb, bty
     else:
         bmat = bframe.to_numpy()
         x = np.column_stack([np.ones(n), bmat]) if intercept else bmat
@@ -295,8 +305,13 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
 
     # Pricing errors on the months used.
     yu, vu = y[used], valid[used]
-    fitted = (np.einsum("tnp,tp->tn", np.where(vu[..., None], x[used], 0.0), gamma) if rolling
-              else gamma @ x.T)
+    if rolling:
+        g_f = gamma[:, int(intercept):]
+        fitted = np.einsum("tnk,tk->tn", bm[used], g_f)
+        if intercept:
+            fitted += gamma[:, :1]
+    else:
+        fitted = gamma @ x.T
     alpha_t = np.where(vu, yu - fitted, np.nan)
     n_i = vu.sum(axis=0)
     live = n_i > 0

@@ -169,17 +169,18 @@ def test_grs_and_pricing_error_test_match_textbook_forms():
     assert res.r2_cs == pytest.approx(r2, rel=1e-10)
 
 
-def test_rolling_betas_cross_sections_match_per_month_regression(french_data):
+@pytest.mark.parametrize("intercept", [True, False])
+def test_rolling_betas_cross_sections_match_per_month_regression(french_data, intercept):
     """With rolling betas, month t uses betas from months t-60..t-1 only; each month's
     gamma_t equals a numpy least-squares cross-section on those betas (independent)."""
     assets, factors = french_data
     a, f = assets.iloc[:200], factors.iloc[:200]
     rb = rolling_betas(a, f, window=60, min_obs=60)
-    res = fama_macbeth(a, rb, factors=f)
+    res = fama_macbeth(a, rb, factors=f, intercept=intercept)
     assert res.betas_used == "rolling" and res.shanken_approximate
     assert res.n_skipped == 60 and res.n_periods == 140
     for t in (60, 99, 199):
         b = rb.values[t - 1]
-        x = np.column_stack([np.ones(len(b)), b])
+        x = np.column_stack([np.ones(len(b)), b]) if intercept else b
         g = np.linalg.lstsq(x, a.iloc[t].to_numpy(), rcond=None)[0]
         np.testing.assert_allclose(res.gamma.loc[a.index[t]].to_numpy(), g, atol=1e-12)
