@@ -97,11 +97,10 @@ def cmd_states(args):
 
 def cmd_exposures(args):
     config, data = _load(args, "exposures")
-    fs = pipeline.factor_set(config, data)
-    res = pipeline.run_exposures(config, data, fs)
+    st = pipeline.run_stages(config, data, "exposures")
+    res = st.exposures
     if not args.json:
-        con = _console(args)
-        display.show_exposures(con, res, fs, config)
+        display.show_exposures(_console(args), res, st.factor_set, config)
     _write_tables(args, {"exposures_book": res.to_frame(), "exposures_assets": res.assets.to_frame(),
                          "exposures_instruments": res.instruments.to_frame() if res.instruments is not None else None,
                          "exposures_rolling_book": res.rolling_book})
@@ -110,11 +109,10 @@ def cmd_exposures(args):
 
 def cmd_premia(args):
     config, data = _load(args, "premia")
-    fs = pipeline.factor_set(config, data)
-    ex = pipeline.run_exposures(config, data, fs)
-    res = pipeline.run_premia(config, data, fs, ex)
+    st = pipeline.run_stages(config, data, "premia")
+    res = st.premia
     if not args.json:
-        display.show_premia(_console(args), res, ex, data.periods_per_year)
+        display.show_premia(_console(args), res, st.exposures, data.periods_per_year)
     _write_tables(args, {"premia": res.to_frame(), "pricing_errors": res.pricing_errors.to_frame("pricing_error"),
                          "premia_monthly": res.gamma})
     return res.to_dict(), 0
@@ -129,10 +127,7 @@ def _hedge_code(res) -> int:
 
 def cmd_hedge(args):
     config, data = _load(args, "hedge")
-    fs = pipeline.factor_set(config, data)
-    ex = pipeline.run_exposures(config, data, fs)
-    pr = pipeline.run_premia(config, data, fs, ex)
-    res = pipeline.run_hedge(config, data, fs, ex, pr, closest=args.closest)
+    res = pipeline.run_stages(config, data, "hedge", closest=args.closest).hedge
     if not args.json:
         con = _console(args)
         display.show_hedge(con, res, config)
@@ -143,16 +138,12 @@ def cmd_hedge(args):
 
 def cmd_stress(args):
     config, data = _load(args, "stress")
-    fs = pipeline.factor_set(config, data)
-    ex = pipeline.run_exposures(config, data, fs)
-    pr = pipeline.run_premia(config, data, fs, ex)
-    hedge = pipeline.run_hedge(config, data, fs, ex, pr, closest=args.closest)
-    if hedge.status != "optimal":
-        _note("note: the hedge targets are not reachable; 'after' columns use the closest overlay found"
-              if args.closest else "note: hedge unreachable; stress shows the book without an overlay")
-        if not args.closest:
-            hedge = None
-    res = pipeline.run_stress_stage(config, data, fs, ex, hedge)
+    st = pipeline.run_stages(config, data, "stress", closest=args.closest, stress_unreachable=False)
+    if st.hedge.status != "optimal":
+        _note("note: the hedge targets are not reachable; 'hedged' columns use the closest overlay found"
+              if args.closest else "note: hedge targets unreachable; the book is stressed without an overlay "
+                                   "(use --closest for the closest reachable one)")
+    res = st.stress
     if not args.json:
         con = _console(args)
         display.show_stress(con, res, config)
@@ -164,8 +155,7 @@ def cmd_stress(args):
 
 def cmd_backtest(args):
     config, data = _load(args, "backtest")
-    fs = pipeline.factor_set(config, data)
-    ex = pipeline.run_exposures(config, data, fs)
+    ex = pipeline.run_stages(config, data, "exposures").exposures
     with display.progress_bar("walk-forward") as tick:
         res = pipeline.run_backtest_stage(config, data, ex, progress=tick, rebalance=args.rebalance)
     if not args.json:

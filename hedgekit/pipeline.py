@@ -264,27 +264,61 @@ def _meta(config: Config, data: Dataset, fs: FactorSet) -> dict[str, Any]:
     }
 
 
+STAGE_ORDER = ("states", "exposures", "premia", "hedge", "stress")
+
+
+@dataclass(frozen=True)
+class Stages:
+    """The results of the stages run so far (``None`` for those not reached)."""
+
+    factor_set: FactorSet
+    exposures: Any = None
+    premia: Any = None
+    hedge: Any = None
+    stress: Any = None
+
+
+def run_stages(config: Config, data: Dataset, until: str, *, closest: bool = False,
+               progress: Progress = None, stress_unreachable: bool = True) -> Stages:
+    """Run the stages in order up to and including ``until`` (one of :data:`STAGE_ORDER`).
+
+    With ``stress_unreachable=False`` an unreachable hedge is left out of the stress
+    (the book is stressed without an overlay) unless ``closest`` asks for the closest one.
+    """
+    last = STAGE_ORDER.index(until)
+    note = progress or (lambda _msg: None)
+    note("states")
+    fs = factor_set(config, data)
+    out: dict[str, Any] = {}
+    if last >= 1:
+        note("exposures")
+        out["exposures"] = run_exposures(config, data, fs)
+    if last >= 2:
+        note("premia")
+        out["premia"] = run_premia(config, data, fs, out["exposures"])
+    if last >= 3:
+        note("hedge")
+        out["hedge"] = run_hedge(config, data, fs, out["exposures"], out["premia"], closest=closest)
+    if last >= 4:
+        note("stress")
+        hedge = out["hedge"]
+        if hedge.status != "optimal" and not (closest or stress_unreachable):
+            hedge = None
+        out["stress"] = run_stress_stage(config, data, fs, out["exposures"], hedge)
+    return Stages(fs, **out)
+
+
 def run_all(config: Config, *, data: Dataset | None = None, backtest: bool = False, closest: bool = False,
             progress: Progress = None, backtest_progress=None) -> RunResult:
     """The whole job: states, exposures, premia, hedge, stress and optionally the backtest."""
-    note = progress or (lambda _msg: None)
     data = data if data is not None else load_dataset(config)
-    note("states")
-    fs = factor_set(config, data)
-    note("exposures")
-    exposures = run_exposures(config, data, fs)
-    note("premia")
-    premia = run_premia(config, data, fs, exposures)
-    note("hedge")
-    hedge = run_hedge(config, data, fs, exposures, premia, closest=closest)
-    note("stress")
-    stress = run_stress_stage(config, data, fs, exposures, hedge)
+    st = run_stages(config, data, "stress", closest=closest, progress=progress)
     bt = None
     if backtest:
-        note("backtest")
-        bt = run_backtest_stage(config, data, exposures, progress=backtest_progress)
+        (progress or (lambda _msg: None))("backtest")
+        bt = run_backtest_stage(config, data, st.exposures, progress=backtest_progress)
     warnings = list(data.warnings)
-    for part in (fs.states, exposures, premia, hedge, stress, bt):
+    for part in (st.factor_set.states, st.exposures, st.premia, st.hedge, st.stress, bt):
         warnings += list(getattr(part, "warnings", ()) or ())
-    return RunResult(config, data, fs, exposures, premia, hedge, stress, bt, _meta(config, data, fs),
-                     tuple(dict.fromkeys(warnings)))
+    return RunResult(config, data, st.factor_set, st.exposures, st.premia, st.hedge, st.stress, bt,
+                     _meta(config, data, st.factor_set), tuple(dict.fromkeys(warnings)))
