@@ -1,0 +1,104 @@
+"""The wiring: factors-file mode, quarterly data, book from returns only, --as-of."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from hedgekit import pipeline
+from hedgekit.config import load_config
+from hedgekit.errors import InputError
+from hedgekit.inputs import load_dataset
+
+from .helpers import demo_copy
+
+
+def _write(frame: pd.DataFrame, path) -> None:
+    out = frame.copy()
+    out.index = out.index.astype(str)
+    out.index.name = "date"
+    out.to_csv(path)
+
+
+def test_factors_file_mode_skips_the_var_and_matches(tmp_path):
+    cfg = demo_copy(tmp_path)
+    config = load_config(cfg)
+    base = pipeline.run_all(config)
+    factors = base.factor_set.factors.rename(columns=lambda c: c if c == "mkt" else f"f_{c}")
+    _write(factors, cfg.parent / "factors.csv")
+    text = cfg.read_text().replace('states = "states.csv"', 'factors = "factors.csv"')
+    text = text.replace('neutralise = ["term", "def"]', 'neutralise = ["f_term", "f_def"]')
+    text = text.replace('order = ["mkt", "dy", "term", "def", "rf"]\n', "")
+    cfg.write_text(text)
+    run = pipeline.run_all(load_config(cfg))
+    assert run.factor_set.source == "factors file" and run.factor_set.states is None
+    np.testing.assert_allclose(run.exposures.book.to_numpy(), base.exposures.book.to_numpy(), atol=1e-8)
+    assert abs(run.hedge.exposure_after["f_term"]) < 1e-6
+    assert run.to_dict()["states"] is None
+
+
+def _quarterly(cfg) -> None:
+    folder = cfg.parent
+    for name in ("assets", "instruments", "portfolio_returns"):
+        frame = pd.read_csv(folder / f"{name}.csv", index_col=0)
+        frame.index = pd.PeriodIndex(frame.index, freq="M")
+        q = (1 + frame).groupby(frame.index.asfreq("Q")).prod(min_count=3) - 1
+        _write(q, folder / f"{name}.csv")
+    states = pd.read_csv(folder / "states.csv", index_col=0)
+    states.index = pd.PeriodIndex(states.index, freq="M")
+    grouped = states.groupby(states.index.asfreq("Q"))
+    q = grouped.last()
+    q["mkt"] = grouped["mkt"].apply(lambda r: np.prod(1 + r.to_numpy()) - 1 if r.notna().all() else np.nan)
+    _write(q, folder / "states.csv")
+    text = cfg.read_text().replace("[data]\n", '[data]\nfrequency = "quarterly"\n')
+    text = text.replace("window = 60\nmin_obs = 36", "window = 20\nmin_obs = 12")
+    cfg.write_text(text)
+
+
+def test_quarterly_data_run_the_whole_job(tmp_path):
+    cfg = demo_copy(tmp_path)
+    _quarterly(cfg)
+    config = load_config(cfg)
+    data = load_dataset(config)
+    assert data.periods_per_year == 4 and str(data.states.index[-1]) == "2025Q4"
+    run = pipeline.run_all(config)
+    assert run.hedge.status == "optimal"
+    assert abs(run.hedge.exposure_after["term"]) < 1e-6
+    # quarterly betas of the book stay close to the monthly ones (same process, aggregated)
+    assert abs(run.exposures.book["def"] - (-0.26)) < 0.08
+    d = run.to_dict()
+    assert d["meta"]["frequency"] == "quarterly"
+
+
+def test_book_from_portfolio_returns_only(tmp_path):
+    cfg = demo_copy(tmp_path)
+    cfg.write_text(cfg.read_text().replace('holdings = "holdings.csv"\n', ""))
+    run = pipeline.run_all(load_config(cfg))
+    assert run.exposures.book_source != "holdings"
+    assert abs(run.exposures.book["def"] - (-0.26)) < 0.03
+
+
+def test_no_book_is_a_clear_error(tmp_path):
+    cfg = demo_copy(tmp_path)
+    text = cfg.read_text().replace('holdings = "holdings.csv"\n', "").replace(
+        'portfolio_returns = "portfolio_returns.csv"\n', "")
+    cfg.write_text(text)
+    with pytest.raises(InputError, match="holdings"):
+        pipeline.run_all(load_config(cfg))
+
+
+def test_as_of_ignores_later_data(tmp_path):
+    cfg = demo_copy(tmp_path)
+    config = load_config(cfg)
+    first = pipeline.run_all(config, data=load_dataset(config).as_of("2015-12"))
+    # change every value after the cut: the earlier run must not move
+    for name in ("assets", "instruments", "states"):
+        path = cfg.parent / f"{name}.csv"
+        frame = pd.read_csv(path, index_col=0)
+        late = frame.index > "2015-12"
+        frame.loc[late] = frame.loc[late] * 1.5
+        frame.to_csv(path)
+    again = pipeline.run_all(config, data=load_dataset(config).as_of("2015-12"))
+    pd.testing.assert_series_equal(first.hedge.positions, again.hedge.positions)
+    assert first.meta["sample_end"] == "2015-12"
