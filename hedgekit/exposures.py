@@ -133,12 +133,14 @@ def _align(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame,
             [str(c) for c in ret.columns], [str(c) for c in fac.columns])
 
 
-def _spd_solve(a: list[list[np.ndarray]], b: list[np.ndarray]) -> list[np.ndarray]:
+def _spd_solve(a: list[list[np.ndarray]], b: list[np.ndarray],
+               scale: list[np.ndarray] | None = None) -> list[np.ndarray]:
     """Solve A x = b for many symmetric positive definite K x K systems at once.
 
     ``a[i][j]`` (i >= j used) and ``b[i]`` are arrays of one common shape, one entry per
     system; Cholesky A = L L' then two triangular solves, looping over K only.  Systems
-    that are not positive definite give NaN.  Works in place: ``a`` and ``b`` are
+    that are not positive definite (a pivot below 1e-12 of ``scale``, by default the
+    diagonal entry) give NaN.  Works in place: ``a`` and ``b`` are
     overwritten.
     """
     k = len(b)
@@ -146,9 +148,11 @@ def _spd_solve(a: list[list[np.ndarray]], b: list[np.ndarray]) -> list[np.ndarra
     with np.errstate(invalid="ignore", divide="ignore"):
         for j in range(k):
             d = a[j][j]
+            ref = scale[j] if scale is not None else d.copy()
             for m in range(j):
                 d -= low[j][m] * low[j][m]
-            d[~(d > 0)] = np.nan
+            # A pivot that cancels to round-off means a (near) singular design: blank.
+            d[~(d > 1e-12 * ref)] = np.nan
             low[j][j] = np.sqrt(d)
             for i in range(j + 1, k):
                 s = a[i][j]
@@ -458,6 +462,8 @@ def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int) -> 
         inv_n = 1.0 / cnt
         mean_f = [sf * inv_n for sf in s_f]
         a: list[list[np.ndarray]] = [[None] * k for _ in range(k)]  # type: ignore[list-item]
+        # Uncentred second moments: the yardstick for a pivot lost to cancellation.
+        raw_diag = [mom[1 + k + pairs.index((j, j))].copy() for j in range(k)]
         for p_, (i, j) in enumerate(pairs):
             s_ff = mom[1 + k + p_]
             s_ff -= s_f[i] * mean_f[j]
@@ -468,7 +474,7 @@ def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int) -> 
             s_fy -= mean_f[j] * s_y
             b.append(s_fy)
     counts = np.rint(cnt).astype(np.int64)
-    x = _spd_solve(a, b)
+    x = _spd_solve(a, b, raw_diag)
     out = np.stack(x, axis=-1)
     out[counts < max(min_obs, k + 2)] = np.nan
     return out, counts

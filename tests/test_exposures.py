@@ -236,3 +236,17 @@ def test_with_estimated_states_factors(scenario):
     book_truth = pd.Series(scenario["truth"]["book_betas"])[list(res.factors)]
     assert float(((res.book - book_truth) / res.book_se).abs().max()) < 4.0
     json.dumps(res.to_dict(), allow_nan=False)
+
+
+def test_weights_need_not_sum_to_one_and_constant_factor_window_is_blank(scenario):
+    """Doubling every weight doubles the book (the rest is leverage); a window in which a
+    factor does not move has no beta (rank deficient), not a huge one."""
+    w = scenario["holdings"]
+    one = estimate_exposures(scenario["factors"], scenario["assets"], holdings=w, window=None)
+    two = estimate_exposures(scenario["factors"], scenario["assets"], holdings=2 * w, window=None)
+    np.testing.assert_allclose(two.book, 2 * one.book, rtol=1e-12)
+    np.testing.assert_allclose(two.book_se, 2 * one.book_se, rtol=1e-9)
+    r, f, _ = _panel(4, t=100, n=3)
+    f.iloc[:50, 1] = 0.01
+    rb = rolling_betas(r, f, window=40, min_obs=30)
+    assert np.isnan(rb.values[29:50]).all() and np.isfinite(rb.values[60:]).all()
