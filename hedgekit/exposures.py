@@ -561,6 +561,7 @@ class ExposureResult:
             "factors": list(self.factors),
             "portfolio": _series_dict(self.book),
             "portfolio_se": _series_dict(self.book_se),
+            "portfolio_hac_se": _series_dict(self.book_se),
             "portfolio_source": self.book_source,
             "assets": _frame_dict(self.assets.betas),
             "instruments": _frame_dict(self.instruments.betas) if self.instruments is not None else {},
@@ -579,6 +580,14 @@ class ExposureResult:
             "hac_lags": int(self.assets.hac_lags),
             "warnings": list(self.warnings),
         }
+
+    def impacts(self, nav: float) -> pd.DataFrame:
+        """The book's return and P&L for a one-standard-deviation move in each factor."""
+        return exposure_impacts(self.book, self.factor_sd, nav)
+
+    def pnl(self, shocks: pd.Series | dict, nav: float) -> pd.DataFrame:
+        """The book's return and P&L for the given factor shocks (see :func:`pnl_from_shocks`)."""
+        return pnl_from_shocks(self.book, shocks, nav)
 
     def to_frame(self) -> pd.DataFrame:
         """The book's exposure table: factor x [beta, se, direct, gap, factor_sd]."""

@@ -122,6 +122,10 @@ def test_to_dict_contract_and_json(exposures):
     json.dumps(exposures.rolling_assets.to_dict(), allow_nan=False)
     frame = exposures.to_frame()
     assert {"beta", "se", "direct", "gap", "factor_sd"} <= set(frame.columns)
+    imp = exposures.impacts(250e6)
+    np.testing.assert_allclose(imp["pnl_1sd"], exposures.book * exposures.factor_sd * 250e6)
+    assert exposures.pnl({"def": 0.01}, 1e6).loc["total", "pnl"] == pytest.approx(
+        exposures.book["def"] * 0.01 * 1e6)
 
 
 def test_late_series_and_too_few_months(scenario):
@@ -174,6 +178,7 @@ def test_exposure_impacts_and_pnl_from_shocks():
     np.testing.assert_allclose(imp["return_1sd"], [1.1 * 0.045, -0.4 * 0.045])
     np.testing.assert_allclose(imp["pnl_1sd"], [1.1 * 0.045 * 1e8, -0.4 * 0.045 * 1e8])
     pnl = pnl_from_shocks(b, {"term": 0.02}, nav=2e8)
+    assert pnl.loc["term", "return"] == pytest.approx(-0.008)
     assert pnl.loc["total", "return"] == pytest.approx(-0.008)
     assert pnl.loc["total", "pnl"] == pytest.approx(-0.008 * 2e8)
     assert pnl.loc["mkt", "shock"] == 0.0
