@@ -27,6 +27,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from scipy.ndimage import uniform_filter1d
 
 from hedgekit.errors import InputError
 
@@ -145,34 +146,44 @@ def _spd_solve(a: list[list[np.ndarray]], b: list[np.ndarray],
     """
     k = len(b)
     low: list[list[np.ndarray | None]] = [[None] * k for _ in range(k)]
+    tmp = np.empty_like(b[0])
+
+    def sub_prod(target: np.ndarray, u: np.ndarray, v: np.ndarray) -> None:
+        np.multiply(u, v, out=tmp)
+        target -= tmp
+
+    # inv[j] = 1 / L_jj: multiplications instead of divisions in the hot loops.
+    inv: list[np.ndarray] = []
     with np.errstate(invalid="ignore", divide="ignore"):
         for j in range(k):
             d = a[j][j]
             ref = scale[j] if scale is not None else d.copy()
             for m in range(j):
-                d -= low[j][m] * low[j][m]
+                sub_prod(d, low[j][m], low[j][m])
             # A pivot that cancels to round-off means a (near) singular design: blank.
             d[~(d > 1e-12 * ref)] = np.nan
-            low[j][j] = np.sqrt(d)
+            np.sqrt(d, out=d)
+            np.divide(1.0, d, out=d)
+            inv.append(d)
             for i in range(j + 1, k):
                 s = a[i][j]
                 for m in range(j):
-                    s -= low[i][m] * low[j][m]
-                s /= low[j][j]
+                    sub_prod(s, low[i][m], low[j][m])
+                s *= d
                 low[i][j] = s
         z: list[np.ndarray] = []
         for i in range(k):
             s = b[i]
             for m in range(i):
-                s -= low[i][m] * z[m]
-            s /= low[i][i]
+                sub_prod(s, low[i][m], z[m])
+            s *= inv[i]
             z.append(s)
         x: list[np.ndarray | None] = [None] * k
         for i in reversed(range(k)):
             s = z[i]
             for m in range(i + 1, k):
-                s -= low[m][i] * x[m]
-            s /= low[i][i]
+                sub_prod(s, low[m][i], x[m])
+            s *= inv[i]
             x[i] = s
     return x  # type: ignore[return-value]
 
@@ -435,26 +446,31 @@ def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int) -> 
 
     Window moments S_ff - s_f s_f'/n and S_fy - s_f s_y/n give the slope of the OLS on
     [1, f] (the intercept partialled out, Frisch-Waugh-Lovell).  All moments of the block
-    sit in one (Q, T, n) array so one cumulative sum serves them all.
+    sit in one (Q, n, T) array; one running-sum filter along time (scipy.ndimage) gives
+    every trailing window sum.
     """
-    mask = np.isfinite(y)
-    y0 = np.where(mask, y, 0.0)
-    t, n = y.shape
+    yt = np.ascontiguousarray(y.T)
+    mask = np.isfinite(yt)
+    y0 = np.where(mask, yt, 0.0)
+    n, t = yt.shape
     k = fc.shape[1]
     pairs = [(i, j) for i in range(k) for j in range(i + 1)]
     # Factor-side terms: 1, f_j, f_i f_j (weighted by the mask); return-side: 1, f_j (by y).
-    g_mask = np.column_stack([np.ones(t), fc] + [fc[:, i] * fc[:, j] for i, j in pairs])
-    g_ret = np.column_stack([np.ones(t), fc])
-    q = g_mask.shape[1]
+    g_mask = np.vstack([np.ones(t), fc.T] + [fc[:, i] * fc[:, j] for i, j in pairs])
+    g_ret = np.vstack([np.ones(t), fc.T])
+    q = g_mask.shape[0]
     m = mask.astype(float)
-    mom = np.empty((q + g_ret.shape[1], t, n))
+    mom = np.empty((q + g_ret.shape[0], n, t))
     for r in range(q):  # loops over moments (<= 27), each vectorised over months and series
-        np.multiply(m, g_mask[:, r, None], out=mom[r])
-    for r in range(g_ret.shape[1]):
-        np.multiply(y0, g_ret[:, r, None], out=mom[q + r])
-    np.cumsum(mom, axis=1, out=mom)
-    if window < t:
-        mom[:, window:] -= mom[:, :-window].copy()
+        np.multiply(m, g_mask[r], out=mom[r])
+    for r in range(g_ret.shape[0]):
+        np.multiply(y0, g_ret[r], out=mom[q + r])
+    w = min(window, t)
+    # Trailing window (months t-w+1..t): the running mean shifted by origin (w-1)//2, the
+    # largest shift scipy allows, with zeros before the first month.  Window means rather
+    # than sums: both sides of the normal equations scale by 1/w, the slopes do not.
+    uniform_filter1d(mom, size=w, axis=2, mode="constant", cval=0.0, origin=(w - 1) // 2,
+                     output=mom)
     cnt = mom[0]
     s_f = [mom[1 + j] for j in range(k)]
     s_y = mom[q]
@@ -464,20 +480,21 @@ def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int) -> 
         a: list[list[np.ndarray]] = [[None] * k for _ in range(k)]  # type: ignore[list-item]
         # Uncentred second moments: the yardstick for a pivot lost to cancellation.
         raw_diag = [mom[1 + k + pairs.index((j, j))].copy() for j in range(k)]
+        tmp = np.empty_like(cnt)
         for p_, (i, j) in enumerate(pairs):
             s_ff = mom[1 + k + p_]
-            s_ff -= s_f[i] * mean_f[j]
+            s_ff -= np.multiply(s_f[i], mean_f[j], out=tmp)
             a[i][j] = s_ff
         b = []
         for j in range(k):
             s_fy = mom[q + 1 + j]
-            s_fy -= mean_f[j] * s_y
+            s_fy -= np.multiply(mean_f[j], s_y, out=tmp)
             b.append(s_fy)
-    counts = np.rint(cnt).astype(np.int64)
+    counts = np.rint(cnt * w).astype(np.int64)
     x = _spd_solve(a, b, raw_diag)
     out = np.stack(x, axis=-1)
     out[counts < max(min_obs, k + 2)] = np.nan
-    return out, counts
+    return out.transpose(1, 0, 2), counts.T
 
 
 def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
