@@ -9,10 +9,10 @@ each series on its own valid months (unbalanced panels are normal).
   ``OLS.fit(cov_type="HAC")`` with its default ``use_correction=False``.  Lags are counted
   in calendar months: a missing month contributes a zero score, so for a series with only
   leading or trailing gaps the result equals statsmodels on the dropped sample.
-* Rolling betas on windows ending at t (months t-window+1..t), from window sums of the
-  cross-products obtained by cumulative sums over time, with the factors centred first so
-  the intercept drops out of a K x K system solved by a vectorised Cholesky
-  factorisation across all windows and series at once.  Five-year windows follow Fama
+* Rolling betas on windows ending at t (months t-window+1..t), from trailing window
+  means of the cross-products (one running-sum filter along time for all moments), with
+  the factors centred first so the intercept drops out of a K x K system solved by a
+  vectorised Cholesky factorisation across all windows and series at once.  Five-year windows follow Fama
   and MacBeth 1973 (JPE); a minimum of 36 valid months is common practice.
 * The book: holdings-based b_p = sum_i w_i b_i (exact for OLS on a common sample) and
   the direct regression of the portfolio's own return series, with their gap.
@@ -502,9 +502,10 @@ def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
     """Rolling OLS slopes of each series on [1, f] over windows ending at each month.
 
     Each series and window uses its own valid months; NaN with fewer than ``min_obs``
-    (and never fewer than K+2).  Vectorised over series and windows (cumulative sums of
-    cross-products, a batched Cholesky solve); series are processed in blocks of 1,000
-    so memory stays bounded.
+    (and never fewer than K+2).  Vectorised over series and windows (running window sums
+    of cross-products, a batched Cholesky solve); series are processed in blocks of 64,
+    on two threads, so memory stays bounded and the blocks stay in cache.  The first
+    rows (t < window-1) use the months available so far when there are ``min_obs``.
     """
     if isinstance(window, bool) or not isinstance(window, int | np.integer) or window < 2:
         raise InputError(f"window must be an integer of at least 2 months, not {window!r}.",
