@@ -57,29 +57,16 @@ from hedgekit.hedge import HedgeSpec, OverlayProblem, design_overlay, instrument
 from hedgekit.premia import fama_macbeth
 from hedgekit.states import realtime_innovations
 
+from .jsonable import jsonable
+
 __all__ = ["BacktestResult", "rebalance_schedule", "walk_forward"]
 
 _BOOK = "__book__"
 
 
-def _plain(x: Any) -> Any:
-    """Plain python for JSON: NaN -> None."""
-    if isinstance(x, dict):
-        return {str(k): _plain(v) for k, v in x.items()}
-    if isinstance(x, list | tuple):
-        return [_plain(v) for v in x]
-    if isinstance(x, np.integer):
-        return int(x)
-    if isinstance(x, np.bool_):
-        return bool(x)
-    if isinstance(x, float | np.floating):
-        x = float(x)
-        return None if math.isnan(x) else x
-    return x
-
 
 def _frame_dict(frame: pd.DataFrame) -> dict[str, dict[str, Any]]:
-    return {str(i): {str(c): _plain(v) for c, v in row.items()} for i, row in frame.iterrows()}
+    return {str(i): {str(c): jsonable(v) for c, v in row.items()} for i, row in frame.iterrows()}
 
 
 @dataclass(frozen=True)
@@ -141,14 +128,14 @@ class BacktestResult:
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dict: the contract keys of interface.md plus the evaluation extras."""
         dates = [str(d) for d in self.rebalance_dates]
-        decisions = {str(d): {str(i): _plain(v) for i, v in row.items()}
+        decisions = {str(d): {str(i): jsonable(v) for i, v in row.items()}
                      for d, row in self.decisions.iterrows()}
         series = self.series.copy()
         series["decision_date"] = series["decision_date"].astype(str).replace("NaT", None)
         intervals = {side: _frame_dict(self.interval(side).T) for side in ("unhedged", "hedged")}
         covers = {f: bool(intervals["hedged"][f]["lo"] <= 0.0 <= intervals["hedged"][f]["hi"])
                   if intervals["hedged"][f]["lo"] is not None else None for f in self.factors}
-        return _plain({
+        return jsonable({
             "rebalance_dates": dates,
             "decisions": decisions,
             "effectiveness": self.effectiveness,

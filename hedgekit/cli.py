@@ -10,14 +10,12 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import sys
 import traceback
-from pathlib import Path
-from typing import Any
 
 from . import __version__
 from .errors import HedgekitError, InputError
+from .jsonable import jsonable
 
 COMMANDS = {
     "demo": "the whole job on the bundled invented scenario (no CONFIG needed)",
@@ -36,19 +34,6 @@ COMMANDS = {
 EPILOG = ("Exit codes: 0 done, 1 other failure, 2 bad input or configuration, "
           "3 hedge targets not reachable.\nOutput is decision support, not investment advice.")
 
-
-def _jsonable(obj: Any) -> Any:
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, float) and (math.isnan(obj) or math.isinf(obj)):
-        return None
-    if hasattr(obj, "item") and callable(obj.item):  # numpy scalars
-        return _jsonable(obj.item())
-    if isinstance(obj, Path):
-        return str(obj)
-    return obj
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -93,7 +78,7 @@ def main(argv: list[str] | None = None) -> int:
         from . import commands
         payload, code = commands.dispatch(args)
         if args.json:
-            sys.stdout.write(json.dumps(_jsonable(payload), indent=None, allow_nan=False) + "\n")
+            sys.stdout.write(json.dumps(jsonable(payload), indent=None, allow_nan=False) + "\n")
         return code
     except HedgekitError as exc:
         if args.debug:

@@ -26,6 +26,8 @@ from scipy.linalg import solve_triangular
 
 from hedgekit.errors import InputError
 
+from .jsonable import jsonable
+
 __all__ = [
     "LagSelection",
     "RealtimeInnovations",
@@ -51,33 +53,9 @@ _RANK_TOL = 1e-10
 # ----------------------------------------------------------------------------- helpers
 
 
-def _jsonable(x: Any) -> Any:
-    """Plain python for JSON: floats, lists, dicts; NaN and NaT become None."""
-    if isinstance(x, dict):
-        return {str(k): _jsonable(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_jsonable(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return [_jsonable(v) for v in x.tolist()]
-    if isinstance(x, pd.Series):
-        return {str(k): _jsonable(v) for k, v in x.items()}
-    if isinstance(x, pd.DataFrame):
-        return {str(r): _jsonable(x.loc[r]) for r in x.index}
-    if isinstance(x, pd.Period):
-        return str(x)
-    if x is None or x is pd.NaT:
-        return None
-    if isinstance(x, (bool, np.bool_)):
-        return bool(x)
-    if isinstance(x, (int, np.integer)):
-        return int(x)
-    if isinstance(x, (float, np.floating)):
-        return None if not np.isfinite(x) else float(x)
-    return x
-
 
 def _series_dict(frame: pd.DataFrame) -> dict[str, list]:
-    return {str(c): _jsonable(frame[c].to_numpy(dtype=float)) for c in frame.columns}
+    return {str(c): jsonable(frame[c].to_numpy(dtype=float)) for c in frame.columns}
 
 
 def _regressor_names(variables: tuple[str, ...], lags: int) -> list[str]:
@@ -281,7 +259,7 @@ class LagSelection:
     selected_by: dict[str, int]
 
     def to_dict(self) -> dict[str, Any]:
-        return _jsonable({
+        return jsonable({
             "criterion": self.criterion, "selected": self.selected, "max_lags": self.max_lags,
             "nobs": self.nobs, "selected_by": dict(self.selected_by),
             "values": {c: self.values[c].tolist() for c in self.values.columns},
@@ -487,7 +465,7 @@ class StateResult:
 
     def to_dict(self) -> dict[str, Any]:
         dates = [str(d) for d in self.raw.index]
-        return _jsonable({
+        return jsonable({
             "variables": list(self.variables),
             "lags": self.lags,
             "lag_selection": self.lag_selection,
@@ -652,7 +630,7 @@ class RealtimeInnovations:
                          axis=1)
 
     def to_dict(self) -> dict[str, Any]:
-        return _jsonable({
+        return jsonable({
             "variables": list(self.variables), "lags": self.lags,
             "min_window": self.min_window, "window": self.window,
             "innovations": {"dates": [str(d) for d in self.raw.index],

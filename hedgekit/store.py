@@ -26,7 +26,8 @@ from typing import Any
 
 import pandas as pd
 
-from hedgekit.errors import InputError
+from .errors import InputError
+from .jsonable import jsonable
 
 SCHEMA_VERSION = 1
 
@@ -53,20 +54,6 @@ CREATE TABLE IF NOT EXISTS input_files (
 CREATE INDEX IF NOT EXISTS runs_by_fund ON runs (fund, sample_end, run_at);
 """
 
-
-def _clean(x: Any) -> Any:
-    """JSON-ready copy: NaN and infinities become None (strict JSON has neither)."""
-    if isinstance(x, Mapping):
-        return {str(k): _clean(v) for k, v in x.items()}
-    if isinstance(x, list | tuple):
-        return [_clean(v) for v in x]
-    if isinstance(x, Path):
-        return str(x)
-    if hasattr(x, "item") and callable(x.item) and not isinstance(x, str | bytes):
-        x = x.item()  # numpy scalars
-    if isinstance(x, float) and not math.isfinite(x):
-        return None
-    return x
 
 
 def fingerprint(config_text: str, input_hashes: Mapping[str, str], version: str) -> str:
@@ -142,7 +129,7 @@ class RunStore:
         hashes = {str(k): str(v) for k, v in (meta.get("input_hashes") or {}).items()}
         version = str(meta.get("version") or "")
         fp = fingerprint(config_text, hashes, version)
-        results = json.dumps(_clean(dict(run)), allow_nan=False)  # key order kept: factor order
+        results = json.dumps(jsonable(dict(run)), allow_nan=False)  # key order kept: factor order
         report = str(report_path) if report_path not in (None, "") else None
         conn = self._connect()
         try:
@@ -255,7 +242,7 @@ class RunStore:
             return {str(k): {"before": _num(before.get(k)), "after": _num(after.get(k))}
                     for k in dict.fromkeys([*before, *after])}
 
-        return _clean({"previous_run_id": prev.run_id, "previous_sample_end": prev.sample_end,
+        return jsonable({"previous_run_id": prev.run_id, "previous_sample_end": prev.sample_end,
                        "exposure": pairs("exposures", "portfolio"), "hedge": pairs("hedge", "positions"),
                        "changes": _changes(prev.run, run, threshold, premium_se_multiple)})
 

@@ -41,6 +41,8 @@ from scipy import stats
 
 from hedgekit.errors import InputError
 
+from .jsonable import jsonable
+
 __all__ = [
     "BUILTIN_SCENARIOS",
     "READINGS",
@@ -89,28 +91,13 @@ BUILTIN_SCENARIOS: dict[str, dict[str, Any]] = {
 _MARKET_KEY = "mkt"
 
 
-def _jsonable(x: Any) -> Any:
-    """Plain python for JSON: NaN -> None, numpy scalars -> python numbers."""
-    if isinstance(x, dict):
-        return {str(k): _jsonable(v) for k, v in x.items()}
-    if isinstance(x, list | tuple):
-        return [_jsonable(v) for v in x]
-    if isinstance(x, np.integer):
-        return int(x)
-    if isinstance(x, float | np.floating):
-        x = float(x)
-        return None if math.isnan(x) else x
-    if isinstance(x, pd.Period):
-        return str(x)
-    return x
-
 
 def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
     out = frame.copy()
     for col in out.columns:
         if isinstance(out[col].dtype, pd.PeriodDtype):
             out[col] = out[col].astype(str)
-    return [_jsonable(r) for r in out.to_dict(orient="records")]
+    return [jsonable(r) for r in out.to_dict(orient="records")]
 
 
 @dataclass(frozen=True)
@@ -176,7 +163,7 @@ class StressResult:
                     for side in ("unhedged", "hedged")
                 },
             })
-        return _jsonable({
+        return jsonable({
             "factors": list(self.factors),
             "nav": self.nav,
             "confidence": self.confidence,
