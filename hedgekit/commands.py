@@ -99,12 +99,13 @@ def cmd_exposures(args):
     config, data = _load(args, "exposures")
     st = pipeline.run_stages(config, data, "exposures")
     res = st.exposures
+    impacts = pipeline.surprise_impacts(res, st.factor_set, config["portfolio"]["nav"])
     if not args.json:
-        display.show_exposures(_console(args), res, st.factor_set, config)
+        display.show_exposures(_console(args), res, st.factor_set, config, impacts)
     _write_tables(args, {"exposures_book": res.to_frame(), "exposures_assets": res.assets.to_frame(),
                          "exposures_instruments": res.instruments.to_frame() if res.instruments is not None else None,
-                         "exposures_rolling_book": res.rolling_book})
-    return res.to_dict(), 0
+                         "exposures_rolling_book": res.rolling_book, "exposures_per_surprise": impacts})
+    return {**res.to_dict(), "per_surprise": impacts.to_dict(orient="index")}, 0
 
 
 def cmd_premia(args):

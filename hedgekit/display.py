@@ -208,7 +208,7 @@ def _exposure_rows(betas, se, extra_cols=()):
         yield [f, fmt(b, 3), fmt(s, 3), fmt(t, 2) + stars(t), *[fn(f) for fn in extra_cols]]
 
 
-def show_exposures(con: Console, res, fs, config) -> None:
+def show_exposures(con: Console, res, fs, config, impacts=None) -> None:
     plain = _plain(con)
     nav = config["portfolio"]["nav"]
     sd = res.factor_sd
@@ -222,6 +222,14 @@ def show_exposures(con: Console, res, fs, config) -> None:
                     cols, _exposure_rows(res.book, res.book_se, extra), plain=plain,
                     caption="Factors: market excess return and orthogonal innovations (same sd). "
                             "* 10 %, ** 5 %, *** 1 %"))
+    if impacts is not None:
+        ccy = config["portfolio"]["currency"]
+        rows = [[v, fmt(r["isolated_return"], 2, pct=True), money_short(r["isolated_pnl"]),
+                 fmt(r["comove_return"], 2, pct=True), money_short(r["comove_pnl"])] for v, r in impacts.iterrows()]
+        con.print(table("Book P&L per +100 bp surprise (+1 % for the market, +1 point for a yield)",
+                        ["surprise in", "isolated", ccy, "with co-moves", ccy], rows, plain=plain,
+                        caption="isolated: other raw surprises zero; with co-moves: the others at their "
+                                "conditional mean."))
     f = list(res.factors)
     a = res.assets
     rows = [[name] + [fmt(a.betas.loc[name, c], 2) + stars(a.t_hac.loc[name, c]) for c in f] +

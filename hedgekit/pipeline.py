@@ -97,6 +97,27 @@ def run_exposures(config: Config, data: Dataset, fs: FactorSet):
                               min_obs=ex["min_obs"], hac_lags=ex["hac_lags"])
 
 
+def surprise_impacts(exposures, fs: FactorSet, nav: float, *, size: float = 0.01) -> pd.DataFrame:
+    """The book's return and P&L for a natural-unit surprise in each state variable.
+
+    A surprise of ``size`` (0.01: +100 bp in a spread or rate, +1 point of dividend yield,
+    +1 % market return) mapped to orthogonal shocks ``M s`` (methods.md section 1), in the
+    isolated reading and with typical co-moves; impact = b' M s.
+    """
+    from .states import surprise_to_shocks
+    rows = []
+    book = exposures.book.reindex(fs.factors.columns).fillna(0.0)
+    for var in fs.transform.index:
+        row = {"variable": var, "surprise": size}
+        for reading in ("isolated", "comove"):
+            shocks = surprise_to_shocks(fs.transform, fs.sigma_u, {var: size}, reading=reading)
+            r = float(book.to_numpy() @ shocks.reindex(book.index).fillna(0.0).to_numpy())
+            row[f"{reading}_return"] = r
+            row[f"{reading}_pnl"] = r * nav
+        rows.append(row)
+    return pd.DataFrame(rows).set_index("variable")
+
+
 # --------------------------------------------------------------------------- premia
 
 def run_premia(config: Config, data: Dataset, fs: FactorSet, exposures):
@@ -239,7 +260,9 @@ class RunResult:
         return {
             "meta": self.meta,
             "states": st.to_dict() if st is not None else None,
-            "exposures": self.exposures.to_dict() if self.exposures is not None else None,
+            "exposures": ({**self.exposures.to_dict(), "per_surprise": surprise_impacts(
+                self.exposures, self.factor_set, self.meta.get("nav", 1.0)).to_dict(orient="index")}
+                if self.exposures is not None else None),
             "premia": self.premia.to_dict() if self.premia is not None else None,
             "hedge": self.hedge.to_dict() if self.hedge is not None else None,
             "stress": self.stress.to_dict() if self.stress is not None else None,

@@ -102,3 +102,21 @@ def test_as_of_ignores_later_data(tmp_path):
     again = pipeline.run_all(config, data=load_dataset(config).as_of("2015-12"))
     pd.testing.assert_series_equal(first.hedge.positions, again.hedge.positions)
     assert first.meta["sample_end"] == "2015-12"
+
+
+def test_surprise_impacts_equal_b_m_s(tmp_path):
+    """Natural-unit readings: isolated = b' M s; with co-moves s_j = Σ_jk / Σ_kk s_k (methods.md §1)."""
+    config = load_config(demo_copy(tmp_path))
+    data = load_dataset(config)
+    st = pipeline.run_stages(config, data, "exposures")
+    fs = st.factor_set
+    table = pipeline.surprise_impacts(st.exposures, fs, 1e6)
+    b = st.exposures.book.reindex(fs.factors.columns).to_numpy()
+    m, sigma = fs.transform.to_numpy(), fs.sigma_u.to_numpy()
+    for k, var in enumerate(fs.transform.index):
+        s = np.zeros(len(b))
+        s[k] = 0.01
+        assert table.loc[var, "isolated_return"] == pytest.approx(b @ m @ s, abs=1e-12)
+        co = sigma[:, k] / sigma[k, k] * 0.01
+        assert table.loc[var, "comove_return"] == pytest.approx(b @ m @ co, abs=1e-12)
+        assert table.loc[var, "comove_pnl"] == pytest.approx(1e6 * b @ m @ co, rel=1e-12)
