@@ -57,6 +57,7 @@ SCHEMA: dict[str, dict[str, tuple[str, Any, Any]]] = {
         "intercept": ("bool", True, None),
         "betas": ("choice", "full", ("full", "rolling")),
         "nw_lags": ("int|choice", AUTO, (AUTO,)),
+        "traded": ("list[str]", (), None),
     },
     "hedge": {
         "neutralise": ("list[str]", (), None),

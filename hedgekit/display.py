@@ -263,9 +263,12 @@ def show_premia(con: Console, res, exposures, periods_per_year: int) -> None:
         rows.append([f, fmt(lam, 4), fmt(lam * periods_per_year, 2, pct=True), fmt(res.t_fm[f], 2) + stars(res.t_fm[f]),
                      fmt(res.t_nw[f], 2), fmt(res.t_shanken[f], 2) + stars(res.t_shanken[f])])
     label = "Shanken t (approx.)" if res.shanken_approximate else "Shanken t"
-    con.print(table(f"Prices of risk (Fama-MacBeth, {res.n_periods} cross-sections, {res.n_skipped} skipped, "
-                    f"{res.betas_used} betas)", ["factor", "lambda/period", "annualised", "FM t", "NW t", label],
-                    rows, plain=plain, caption=f"Cross-sectional R2 {fmt(res.r2_cs, 3)}; Newey-West lags {res.nw_lags}."))
+    skipped = f"{res.n_skipped} skipped" + (" (incl. the warm-up before the first rolling window)"
+                                            if res.betas_used == "rolling" and res.n_skipped else "")
+    con.print(table(f"Prices of risk (Fama-MacBeth, {res.betas_used} betas)",
+                    ["factor", "lambda/period", "annualised", "FM t", "NW t", label], rows, plain=plain,
+                    caption=f"{res.n_periods} cross-sections, {skipped}; cross-sectional R2 {fmt(res.r2_cs, 3)}; "
+                            f"Newey-West lags {res.nw_lags}."))
     pe = res.pricing_error_test
     con.print(f"Pricing errors jointly zero: chi2 = {fmt(pe.get('stat'), 2)}, df = {pe.get('df')}, "
               f"p = {fmt(pe.get('pvalue'), 3)}"

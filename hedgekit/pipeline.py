@@ -130,7 +130,12 @@ def run_premia(config: Config, data: Dataset, fs: FactorSet, exposures):
         betas = exposures.rolling_assets.lagged()
     else:
         betas = exposures.assets.betas
-    traded = [fs.market] if fs.source == "var" and config["states"]["market_factor"] == "return" else None
+    # GRS needs every factor to be a traded excess return: only the user can say so (factors file).
+    traded = list(pr["traded"]) or None
+    unknown = [f for f in (traded or []) if f not in fs.factors.columns]
+    if unknown:
+        raise InputError(f"[premia] traded names {unknown[0]!r}, not a factor ({', '.join(fs.factors.columns)}).",
+                         file=_cfg_file(config))
     return fama_macbeth(data.assets, betas, factors=fs.factors, intercept=pr["intercept"],
                         nw_lags=pr["nw_lags"], traded=traded)
 

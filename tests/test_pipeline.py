@@ -30,8 +30,10 @@ def test_factors_file_mode_skips_the_var_and_matches(tmp_path):
     text = cfg.read_text().replace('states = "states.csv"', 'factors = "factors.csv"')
     text = text.replace('neutralise = ["term", "def"]', 'neutralise = ["f_term", "f_def"]')
     text = text.replace('order = ["mkt", "dy", "term", "def", "rf"]\n', "")
+    text = text.replace('nw_lags = "auto"', 'nw_lags = "auto"\ntraded = ["mkt", "f_dy", "f_term", "f_def", "f_rf"]')
     cfg.write_text(text)
     run = pipeline.run_all(load_config(cfg))
+    assert run.premia.grs is not None and 0 <= run.premia.grs["pvalue"] <= 1  # every factor declared traded
     assert run.factor_set.source == "factors file" and run.factor_set.states is None
     np.testing.assert_allclose(run.exposures.book.to_numpy(), base.exposures.book.to_numpy(), atol=1e-8)
     assert abs(run.hedge.exposure_after["f_term"]) < 1e-6
