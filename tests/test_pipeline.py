@@ -122,3 +122,18 @@ def test_surprise_impacts_equal_b_m_s(tmp_path):
         co = sigma[:, k] / sigma[k, k] * 0.01
         assert table.loc[var, "comove_return"] == pytest.approx(b @ m @ co, abs=1e-12)
         assert table.loc[var, "comove_pnl"] == pytest.approx(1e6 * b @ m @ co, rel=1e-12)
+
+
+def test_user_scenario_from_config(tmp_path):
+    """A [[stress.scenarios]] table reaches the stress stage: P&L = b' M s (methods.md §1)."""
+    cfg = demo_copy(tmp_path)
+    cfg.write_text(cfg.read_text() + '\n[[stress.scenarios]]\nname = "bear_flattener"\n'
+                   'shocks = { term = -0.005, rf = 0.0075 }\nreading = "isolated"\n')
+    run = pipeline.run_all(load_config(cfg))
+    row = run.stress.table.set_index("scenario").loc["bear_flattener"]
+    fs = run.factor_set
+    s = pd.Series(0.0, index=fs.transform.index)
+    s["term"], s["rf"] = -0.005, 0.0075
+    expected = float(run.exposures.book.reindex(s.index).to_numpy() @ fs.transform.to_numpy() @ s.to_numpy())
+    assert row["unhedged"] == pytest.approx(expected, abs=1e-12)
+    assert row["unhedged_ccy"] == pytest.approx(expected * 250_000_000, rel=1e-9)
