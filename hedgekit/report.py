@@ -243,7 +243,7 @@ def _summary(run: Mapping) -> Section:
     backtest = run.get("backtest") or {}
     if backtest.get("effectiveness_neutralised") is not None:
         tiles.append(("Walk-forward effectiveness, targeted factors",
-                      fmt(backtest.get("effectiveness_neutralised"), 3)))
+                      pct(backtest.get("effectiveness_neutralised"), 1)))
     if len(tiles) < 6:
         tiles.append(("Frequency", str(meta.get("frequency") or "monthly")))
     blocks: list[Block] = [Tiles(tuple(tiles))]
@@ -760,10 +760,10 @@ def _backtest_section(run: Mapping) -> Section | None:
     facts: list[tuple[str, str]] = []
     if backtest.get("effectiveness") is not None:
         facts.append(("Hedge effectiveness, all factors (1 \u2212 hedged/unhedged variance of "
-                      "state-driven P&L)", fmt(backtest.get("effectiveness"), 3)))
+                      "state-driven P&L)", pct(backtest.get("effectiveness"), 1)))
     if backtest.get("effectiveness_neutralised") is not None:
         names = ", ".join(str(f) for f in backtest.get("neutralised") or []) or "neutralised factors"
-        facts.append((f"Hedge effectiveness, {names}", fmt(backtest.get("effectiveness_neutralised"), 3)))
+        facts.append((f"Hedge effectiveness, {names}", pct(backtest.get("effectiveness_neutralised"), 1)))
     for key, label in (("realised_tracking_error", "Realised tracking error, a year"),
                        ("predicted_tracking_error", "Predicted tracking error, a year")):
         if backtest.get(key) is not None:
@@ -801,7 +801,7 @@ def _backtest_section(run: Mapping) -> Section | None:
     by_factor = backtest.get("effectiveness_by_factor") or {}
     if by_factor:
         blocks.append(Table(("Factor", "Effectiveness"),
-                            tuple((str(f), fmt(v, 3)) for f, v in by_factor.items()),
+                            tuple((str(f), pct(v, 1)) for f, v in by_factor.items()),
                             caption="Effectiveness by factor", numeric=(False, True),
                             note="Negative where the overlay adds exposure to a factor it does "
                                  "not target."))

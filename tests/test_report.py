@@ -297,7 +297,7 @@ def test_missing_values_and_extras_do_not_break(tmp_path: Path) -> None:
                                   "hedged": [0.01, None, -0.01], "unhedged": [0.02, -0.03, 0.0]}}
     paths = report.write_report(run, tmp_path)
     text = paths["html"].read_text(encoding="utf-8")
-    assert "Walk-forward check" in text and "0.710" in text
+    assert "Walk-forward check" in text and "71.0 %" in text
     assert "From the book&#x27;s returns" in text
     assert "figure_backtest" in paths
     assert "GRS test" in text
