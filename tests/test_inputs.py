@@ -199,3 +199,25 @@ def test_random_malformed_csv_only_raises_input_error(tmp_path, text):
             _time_series(p, "assets", freq)
         except InputError:
             pass
+
+
+def test_too_few_common_months_for_the_window(tmp_path, capsys):
+    cfg = demo_copy(tmp_path)
+    path = cfg.parent / "assets.csv"
+    lines = path.read_text().splitlines()
+    path.write_text("\n".join(lines[:1] + lines[-20:]) + "\n")  # 20 months of asset returns
+    code = main(["exposures", str(cfg)])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "assets.csv" in err and "only 20 months in common" in err and "min_obs" in err
+
+
+def test_a_command_reads_only_its_files(tmp_path, capsys):
+    cfg = demo_copy(tmp_path)
+    (cfg.parent / "instruments.csv").unlink()
+    (cfg.parent / "instrument_sheet.csv").unlink()
+    assert main(["states", str(cfg)]) == 0
+    assert main(["premia", str(cfg)]) == 0
+    capsys.readouterr()
+    assert main(["hedge", str(cfg)]) == 2
+    assert "instruments.csv" in capsys.readouterr().err
