@@ -6,9 +6,7 @@ progress go to stderr so ``--json`` keeps stdout to one JSON object.
 
 from __future__ import annotations
 
-import os
 import sys
-import tempfile
 from pathlib import Path
 
 import pandas as pd
@@ -16,6 +14,7 @@ import pandas as pd
 from . import display, pipeline
 from .config import load_config
 from .errors import InputError
+from .files import atomic_write_csv
 from .inputs import load_dataset
 
 # Which data files each command reads (the rest are not touched).
@@ -39,22 +38,6 @@ def _console(args):
     return display.make_console()
 
 
-def write_csv_atomic(frame: pd.DataFrame, path: Path) -> None:
-    """Write a CSV through a temporary file in the same folder, then rename: never half-written."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            out = frame.copy()
-            if isinstance(out.index, pd.PeriodIndex):
-                out.index = out.index.astype(str)
-            out.to_csv(fh, lineterminator="\n")
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-
-
 def _write_tables(args, tables: dict[str, pd.DataFrame]) -> None:
     if not getattr(args, "out", None):
         return
@@ -63,7 +46,7 @@ def _write_tables(args, tables: dict[str, pd.DataFrame]) -> None:
         raise InputError("--out must name a folder, not a file.", file=str(folder))
     for name, frame in tables.items():
         if frame is not None:
-            write_csv_atomic(frame, folder / f"{name}.csv")
+            atomic_write_csv(frame, folder / f"{name}.csv")
     _note(f"tables written to {folder}/: {', '.join(f'{n}.csv' for n, f in tables.items() if f is not None)}")
 
 

@@ -27,6 +27,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from .errors import InputError
+from .files import atomic_write_csv, atomic_write_text
+
 SEED = 20261201
 START = "1985-12"          # first month of levels; returns start one month later
 N_MONTHS = 481             # 1985-12 .. 2025-12
@@ -240,25 +243,28 @@ def _write_csv(frame: pd.DataFrame, path: Path, index: bool = True) -> None:
     if index:
         out.index = out.index.astype(str)
         out.index.name = "date"
-    out.to_csv(path, index=index, float_format="%.10g", lineterminator="\n")
+    atomic_write_csv(out, path, index=index, float_format="%.10g")
 
 
 def write_scenario(out: str | Path, seed: int = SEED) -> Path:
-    """Write the scenario's CSVs, truth.json and config into ``out``; returns the config path."""
+    """Write the scenario's CSVs, truth.json and config into ``out``; returns the config path.
+
+    Every file is written atomically, so an interrupted run leaves no half-written file.
+    """
     out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
+    if out.exists() and not out.is_dir():
+        raise InputError("the demo folder exists and is a file.", file=str(out), fix="pass --dir a folder name.")
     sim = simulate(seed)
     _write_csv(sim["states"], out / "states.csv")
     _write_csv(sim["assets"], out / "assets.csv")
     _write_csv(sim["instruments"], out / "instruments.csv")
     _write_csv(sim["portfolio_returns"], out / "portfolio_returns.csv")
-    sim["holdings"].rename_axis("asset").rename("weight").to_frame().to_csv(
-        out / "holdings.csv", float_format="%.10g", lineterminator="\n")
-    sim["sheet"].to_csv(out / "instrument_sheet.csv", index=False, float_format="%.10g",
-                        lineterminator="\n")
-    (out / "truth.json").write_text(json.dumps(sim["truth"], indent=2) + "\n")
+    atomic_write_csv(sim["holdings"].rename_axis("asset").rename("weight").to_frame(), out / "holdings.csv",
+                     float_format="%.10g")
+    _write_csv(sim["sheet"], out / "instrument_sheet.csv", index=False)
+    atomic_write_text(out / "truth.json", json.dumps(sim["truth"], indent=2) + "\n")
     config = out / "larkspur.toml"
-    config.write_text(CONFIG)
+    atomic_write_text(config, CONFIG)
     return config
 
 
