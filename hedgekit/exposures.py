@@ -441,7 +441,8 @@ def _window_sum(a: np.ndarray, window: int) -> np.ndarray:
     return out
 
 
-def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int) -> tuple[np.ndarray, np.ndarray]:
+def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int,
+                   out: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Rolling betas of one block of series on centred factors: (T, n, K) and counts (T, n).
 
     Window moments S_ff - s_f s_f'/n and S_fy - s_f s_y/n give the slope of the OLS on
@@ -461,10 +462,8 @@ def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int) -> 
     q = g_mask.shape[0]
     m = mask.astype(float)
     mom = np.empty((q + g_ret.shape[0], n, t))
-    for r in range(q):  # loops over moments (<= 27), each vectorised over months and series
-        np.multiply(m, g_mask[r], out=mom[r])
-    for r in range(g_ret.shape[0]):
-        np.multiply(y0, g_ret[r], out=mom[q + r])
+    np.multiply(m[None], g_mask[:, None, :], out=mom[:q])
+    np.multiply(y0[None], g_ret[:, None, :], out=mom[q:])
     w = min(window, t)
     # Trailing window (months t-w+1..t): the running mean shifted by origin (w-1)//2, the
     # largest shift scipy allows, with zeros before the first month.  Window means rather
@@ -492,7 +491,7 @@ def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int) -> 
             b.append(s_fy)
     counts = np.rint(cnt * w).astype(np.int64)
     x = _spd_solve(a, b, raw_diag)
-    out = np.stack(x, axis=-1)
+    out = np.stack(x, axis=-1, out=out)  # (n, T, K): written straight into the caller's block
     out[counts < max(min_obs, k + 2)] = np.nan
     return out.transpose(1, 0, 2), counts.T
 
@@ -520,13 +519,14 @@ def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
     t, n = y.shape
     k = f.shape[1]
     fc = f - f.mean(axis=0)
-    values = np.empty((t, n, k))
-    counts = np.empty((t, n), dtype=np.int64)
+    # Series-major storage so each block writes one contiguous slab; exposed as (T, N, K).
+    store = np.empty((n, t, k))
+    counts_store = np.empty((n, t), dtype=np.int64)
 
     def run(start: int) -> None:
         stop = min(start + _CHUNK, n)
-        values[:, start:stop], counts[:, start:stop] = _rolling_block(y[:, start:stop], fc,
-                                                                      int(window), int(min_obs))
+        _, c = _rolling_block(y[:, start:stop], fc, int(window), int(min_obs), out=store[start:stop])
+        counts_store[start:stop] = c.T
 
     # Blocks of series bound the memory and stay in cache; numpy releases the GIL inside
     # each block, so two threads use two cores.  Results do not depend on the threading.
@@ -537,7 +537,8 @@ def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
     else:
         for start in starts:
             run(start)
-    return RollingBetas(values, dates, tuple(names), tuple(fnames), counts, int(window), int(min_obs))
+    return RollingBetas(store.transpose(1, 0, 2), dates, tuple(names), tuple(fnames), counts_store.T,
+                        int(window), int(min_obs))
 
 
 # --------------------------------------------------------------------------- the book
