@@ -424,7 +424,9 @@ def read_sheet(path: Path, instruments: pd.DataFrame | None) -> pd.DataFrame:
         bad = ~(out[col] > 0)
         if bad.any():
             i = int(np.flatnonzero(bad.to_numpy())[0])
-            raise InputError(f"{col} must be a positive number (found {frame[col].iloc[i]!r}).", file=name,
+            cell = frame[col].iloc[i]
+            shown = "a blank cell" if pd.isna(cell) else str(cell).strip()
+            raise InputError(f"{col} must be a positive number (found {shown}).", file=name,
                              row=i + 2, column=col, fix="give the contract multiplier and the current price.")
     out["cost_bps"] = out["cost_bps"].fillna(0.0)
     if (out["cost_bps"] < 0).any():
