@@ -29,7 +29,8 @@ import numpy as np
 import pandas as pd
 from scipy.ndimage import uniform_filter1d
 
-from hedgekit.errors import InputError
+from .errors import InputError
+from .jsonable import jsonable
 
 __all__ = [
     "BetaEstimates",
@@ -188,22 +189,7 @@ def _spd_solve(a: list[list[np.ndarray]], b: list[np.ndarray],
     return x  # type: ignore[return-value]
 
 
-def _clean(value: object) -> object:
-    """JSON-ready plain python: NaN -> None, numpy scalars -> float/int."""
-    if isinstance(value, dict):
-        return {str(k): _clean(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_clean(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return [_clean(v) for v in value.tolist()]
-    if isinstance(value, bool | np.bool_):
-        return bool(value)
-    if isinstance(value, int | np.integer):
-        return int(value)
-    if isinstance(value, float | np.floating):
-        v = float(value)
-        return None if not math.isfinite(v) else v
-    return value
+_clean = jsonable  # JSON-ready plain python (NaN -> None), shared with every stage
 
 
 def _series_dict(s: pd.Series | None) -> dict | None:
