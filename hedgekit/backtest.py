@@ -51,13 +51,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from hedgekit.errors import InputError
-from hedgekit.exposures import time_series_betas
-from hedgekit.hedge import HedgeSpec, OverlayProblem, design_overlay, instrument_covariance
-from hedgekit.premia import fama_macbeth
-from hedgekit.states import realtime_innovations
-
+from .errors import InputError
+from .exposures import time_series_betas
+from .hedge import HedgeSpec, OverlayProblem, design_overlay, instrument_covariance
 from .jsonable import jsonable
+from .premia import fama_macbeth
+from .states import realtime_innovations
 
 __all__ = ["BacktestResult", "rebalance_schedule", "walk_forward"]
 

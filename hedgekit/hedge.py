@@ -41,7 +41,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from hedgekit.errors import HedgekitError, InputError
+from .errors import HedgekitError, InputError
 
 __all__ = [
     "CAUTIONS",

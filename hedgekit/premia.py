@@ -36,8 +36,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from hedgekit.errors import InputError
-from hedgekit.exposures import (
+from .errors import InputError
+from .exposures import (
     RollingBetas,
     _as_frame,
     _clean,

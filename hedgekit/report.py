@@ -33,8 +33,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from hedgekit import plots
-from hedgekit.errors import InputError
+from . import plots
+from .errors import InputError
 
 FORMATS = ("html", "md")
 

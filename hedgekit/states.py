@@ -24,8 +24,7 @@ import numpy as np
 import pandas as pd
 from scipy.linalg import solve_triangular
 
-from hedgekit.errors import InputError
-
+from .errors import InputError
 from .jsonable import jsonable
 
 __all__ = [

@@ -39,8 +39,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from hedgekit.errors import InputError
-
+from .errors import InputError
 from .jsonable import jsonable
 
 __all__ = [
