@@ -1171,8 +1171,39 @@ def _atomic_write_all(files: Mapping[Path, bytes]) -> None:
             with contextlib.suppress(OSError):
                 os.unlink(tmp)
         raise
-    for tmp, path in staged:
-        os.replace(tmp, path)
+    # Keep a hard link to each file being replaced, so that a failure half-way through the
+    # renames can put every earlier file back: all files change, or none.
+    backups: list[tuple[Path, Path]] = []
+    done: list[Path] = []
+    try:
+        for _, path in staged:
+            if path.exists():
+                backup = path.with_name(f".{path.name}.{os.getpid()}.bak")
+                with contextlib.suppress(FileNotFoundError):
+                    backup.unlink()
+                os.link(path, backup)
+                backups.append((path, backup))
+        for tmp, path in staged:
+            os.replace(tmp, path)
+            done.append(path)
+    except BaseException:
+        saved = dict(backups)
+        for path in done:
+            with contextlib.suppress(OSError):
+                if path in saved:
+                    os.replace(saved.pop(path), path)
+                else:
+                    path.unlink()
+        for tmp, _ in staged:
+            with contextlib.suppress(OSError):
+                os.unlink(tmp)
+        for backup in saved.values():
+            with contextlib.suppress(OSError):
+                backup.unlink()
+        raise
+    for _, backup in backups:
+        with contextlib.suppress(OSError):
+            backup.unlink()
 
 
 def write_report(run: Mapping, out_dir: Path | str, *, formats: Iterable[str] = ("html", "md"),
@@ -1192,7 +1223,14 @@ def write_report(run: Mapping, out_dir: Path | str, *, formats: Iterable[str] = 
         raise InputError(f"report name {name!r} is not a plain file name.", column="name",
                          fix="use letters, digits, '.', '_' or '-' only.")
     out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError("the report output is a file, not a folder.", file=str(out_dir),
+                         fix="set [report] output to a folder name.")
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot create the report folder ({exc.strerror}).", file=str(out_dir),
+                         fix="set [report] output to a folder you can write to.") from None
     doc = build_document(run)
     generated = str((run.get("meta") or {}).get("run_at") or "")
     files: dict[Path, bytes] = {}
@@ -1210,5 +1248,10 @@ def write_report(run: Mapping, out_dir: Path | str, *, formats: Iterable[str] = 
     if "html" in formats:
         files[out_dir / f"{name}.html"] = render_html(doc, generated=generated).encode("utf-8")
         written["html"] = out_dir / f"{name}.html"
-    _atomic_write_all(files)
+    try:
+        _atomic_write_all(files)
+    except OSError as exc:
+        raise InputError(f"cannot write the report ({exc.strerror or exc}); the earlier report, if any, "
+                         "is unchanged.",
+                         file=str(out_dir), fix="set [report] output to a folder you can write to.") from None
     return written

@@ -14,6 +14,7 @@ import pytest
 
 from hedgekit import plots, report
 from hedgekit.demo import simulate
+from hedgekit.errors import InputError
 
 HOSTILE = "<script>alert(1)</script>"
 
@@ -254,7 +255,7 @@ def test_failed_write_leaves_no_half_file(tmp_path: Path, monkeypatch) -> None:
 
     real_fdopen = report.os.fdopen
     monkeypatch.setattr(report.os, "fdopen", fail_on_write)
-    with pytest.raises(OSError, match="disk full"):
+    with pytest.raises(InputError, match="disk full"):  # exit 2 at the command line, no traceback
         report.write_report(demo_run(), tmp_path)
     assert len(calls) == 3
     assert {k: p.read_bytes() for k, p in first.items()} == before
@@ -378,3 +379,34 @@ def test_quarterly_run_reads_in_quarters(tmp_path: Path) -> None:
     assert any(f.startswith("Quarters used") for f in facts)
     assert np.allclose(plots._month_axis(quarters[:3]), [1986.0, 1986.25, 1986.5])
     assert report.write_report(run, tmp_path)["figure_rolling"].exists()
+
+
+def test_a_failed_rename_puts_every_earlier_file_back(tmp_path, monkeypatch):
+    """All report files change or none: a rename failing half-way restores the ones already moved."""
+    import os as _os
+
+    from hedgekit import report as rep
+    run = demo_run()
+    first = rep.write_report(run, tmp_path)
+    before = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    run2 = dict(run, meta=dict(run["meta"], sample_end="2099-12"))
+    real = _os.replace
+    calls = {"n": 0}
+
+    def flaky(src, dst):
+        if str(dst).endswith(".html") and not str(src).endswith(".bak"):
+            raise PermissionError(13, "Permission denied")
+        calls["n"] += 1
+        return real(src, dst)
+    monkeypatch.setattr(rep.os, "replace", flaky)
+    from hedgekit.errors import InputError
+    try:
+        rep.write_report(run2, tmp_path)
+    except InputError as exc:
+        assert "earlier report" in str(exc)
+    else:
+        raise AssertionError("expected an InputError")
+    monkeypatch.setattr(rep.os, "replace", real)
+    after = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    assert after == before, "every file is back as it was, and no temporary or backup file is left"
+    assert first["html"].exists()
