@@ -301,10 +301,18 @@ def parse_config(text: str, *, path: Path | None = None, base: Path | None = Non
     if nav is not None and nav <= 0:
         raise InputError(f"[portfolio] nav = {nav} must be positive.", file=where,
                          fix="give the net asset value in currency units, e.g. nav = 250_000_000.")
+    lags = sections["states"]["lags"]
+    if isinstance(lags, int) and not 1 <= lags <= 24:
+        raise InputError(f"[states] lags = {lags} is outside 1..24.", file=where,
+                         fix='use a small whole number such as 1, or "bic" to choose it.')
     ex = sections["exposures"]
     if isinstance(ex["window"], int) and ex["window"] < ex["min_obs"]:
         raise InputError(f"[exposures] window = {ex['window']} is shorter than min_obs = {ex['min_obs']}.",
                          file=where, fix="raise window or lower min_obs.")
+    if nav is None:
+        raise InputError("[portfolio] nav is required: P&L, notionals and contracts are sized from it.",
+                         file=where, fix="add nav = 250_000_000 (the net asset value in currency units) "
+                                         "under [portfolio].")
     return Config(path=path, base=base, text=text,
                   sections=MappingProxyType({s: _freeze(v) for s, v in sections.items()}))
 
@@ -319,7 +327,7 @@ def load_config(path: str | Path) -> Config:
         raise InputError("is a folder, not a configuration file.", file=str(path),
                          fix="pass the .toml file inside it.")
     try:
-        text = path.read_text(encoding="utf-8")
+        text = path.read_text(encoding="utf-8-sig")  # a byte-order mark is fine
     except UnicodeDecodeError:
         raise InputError("is not UTF-8 text.", file=str(path), fix="save it as UTF-8.") from None
     return parse_config(text, path=path, base=path.resolve().parent)

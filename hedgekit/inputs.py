@@ -47,10 +47,23 @@ class Dataset:
     def as_of(self, date: str | pd.Period) -> Dataset:
         """The same data cut at ``date`` (inclusive): a run as it would have been made then."""
         freq = FREQ[self.frequency]
-        try:
-            cut = pd.Period(str(date), freq=freq)
-        except (ValueError, TypeError):
-            raise InputError(f"--as-of {date!r} is not a period like 2025-09.", column="as_of") from None
+        text = str(date).strip()
+        m = re.fullmatch(r"(\d{4})-(\d{1,2})(?:-(\d{1,2}))?", text)
+        q = re.fullmatch(r"(\d{4})-?Q([1-4])", text, flags=re.I)
+        if m and 1 <= int(m.group(2)) <= 12:
+            cut = pd.Period(year=int(m.group(1)), month=int(m.group(2)), freq="M").asfreq(freq)
+        elif q:  # a quarter means its last month
+            cut = pd.Period(year=int(q.group(1)), quarter=int(q.group(2)), freq="Q").asfreq("M", "end").asfreq(freq)
+        else:
+            raise InputError(f"--as-of {text!r} is not a period.", fix="write it like 2025-09 (a month) or 2025Q3.")
+        frame0 = self.states if self.states is not None else self.factors
+        if frame0 is None:
+            frame0 = self.assets
+        if frame0 is not None:
+            last = frame0.dropna(how="all").index[-1]
+            if cut > last:
+                raise InputError(f"--as-of {cut} is after the last period of the data ({last}).",
+                                 file=frame0.attrs.get("file"), fix=f"use {last} or earlier.")
         frames = {}
         for name in ("states", "assets", "instruments", "factors", "portfolio_returns"):
             frame = getattr(self, name)
@@ -173,7 +186,13 @@ def _parse_dates(values: pd.Series, name: str, freq: str) -> pd.PeriodIndex:
         ok = ok | qok
     ok &= months.between(1, 12)
     days = pd.to_numeric(parts[2], errors="coerce")
-    ok &= days.isna() | days.between(1, 31)
+    month_len = pd.Series(31, index=days.index)
+    known = ok & days.notna()
+    if known.any():
+        month_len[known] = pd.PeriodIndex.from_fields(year=years[known].astype(int).to_numpy(),
+                                                      month=months[known].astype(int).to_numpy(),
+                                                      freq="M").days_in_month
+    ok &= days.isna() | ((days >= 1) & (days <= month_len))
     if not ok.all():
         i = int(np.flatnonzero(~ok.to_numpy())[0])
         raise InputError(f"date {values.iloc[i]!r} is not a date of the form YYYY-MM or YYYY-MM-DD.",
@@ -279,7 +298,7 @@ def _common_months_error(name: str, need: int, have: int, what: str) -> InputErr
 # --------------------------------------------------------------------------- readers
 
 def read_states(path: Path, order: Iterable[str] | None, market: str | None, *, freq: str = "M",
-                units: str = "decimal") -> pd.DataFrame:
+                units: str = "decimal", config_file: str | None = None) -> pd.DataFrame:
     """The states file: market excess return then state-variable levels, in the configured order."""
     frame = _time_series(path, "states", freq)
     name = str(path)
@@ -291,12 +310,16 @@ def read_states(path: Path, order: Iterable[str] | None, market: str | None, *, 
             raise InputError(f"state variable {v!r} from [states] order is not a column of the file "
                              f"(columns: {', '.join(cols)}).", file=name, row=1, column=v,
                              fix="correct [states] order or rename the column.")
+    dup = [v for i, v in enumerate(order) if v in order[:i]]
+    if dup:
+        raise InputError(f"[states] order lists {dup[0]!r} twice.", file=config_file or name,
+                         fix="name each state variable once.")
     if market not in order:
-        raise InputError(f"the market column {market!r} is not in [states] order.", file=name, column=market,
-                         fix="put the market column first in order.")
+        raise InputError(f"the market column {market!r} ([states] market) is not in [states] order.",
+                         file=config_file or name, fix="put the market column first in order.")
     if order[0] != market:
         raise InputError(f"[states] order starts with {order[0]!r}, but the market {market!r} must come first.",
-                         file=name, column=order[0], fix=f"move {market!r} to the front of order.")
+                         file=config_file or name, fix=f"move {market!r} to the front of order.")
     frame = frame[order]
     if units == "percent":
         frame = frame / 100.0
@@ -313,7 +336,8 @@ def read_states(path: Path, order: Iterable[str] | None, market: str | None, *, 
     holes = inner.isna()
     if holes.to_numpy().any():
         i, j = (int(x[0]) for x in np.nonzero(holes.to_numpy()))
-        raise InputError(f"state variables need an unbroken history, but {inner.index[i]} is blank.", file=name,
+        raise InputError(f"state variables need an unbroken history, but {inner.index[i]} is missing or blank.",
+                         file=name,
                          row=f"date {inner.index[i]}", column=str(inner.columns[j]),
                          fix="fill the gap (e.g. carry the last level forward) or start the sample later.")
     sd = inner.std(ddof=1)
@@ -459,12 +483,25 @@ def read_positions(path: Path, sheet: pd.DataFrame | None) -> pd.Series:
     frame = _read_table(path, "current positions")
     if [c.lower() for c in frame.columns[:2]] != ["instrument", "weight"]:
         raise InputError("current positions need the columns instrument,weight.", file=name, row=1)
+    ids = frame.iloc[:, 0].astype("string").str.strip()
+    blank = ids.isna() | (ids == "")
+    if blank.any():
+        i = int(np.flatnonzero(blank.to_numpy())[0])
+        raise InputError("instrument name is blank.", file=name, row=i + 2, column="instrument")
+    dup = ids.duplicated()
+    if dup.any():
+        i = int(np.flatnonzero(dup.to_numpy())[0])
+        raise InputError(f"instrument {ids.iloc[i]!r} is listed twice.", file=name, row=i + 2, column="instrument",
+                         fix="merge the rows into one weight.")
     weights = pd.to_numeric(frame.iloc[:, 1], errors="coerce")
-    if weights.isna().any():
-        i = int(np.flatnonzero(weights.isna().to_numpy())[0])
-        raise InputError(f"weight {frame.iloc[i, 1]!r} is not a number.", file=name, row=i + 2, column="weight")
-    series = pd.Series(weights.to_numpy(dtype=float),
-                       index=pd.Index(frame.iloc[:, 0].astype("string").str.strip().to_numpy(), name="instrument"))
+    bad = ~np.isfinite(weights.to_numpy(dtype=float, na_value=np.nan))
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        cell = frame.iloc[i, 1]
+        shown = "blank" if pd.isna(cell) else f"{str(cell).strip()!r}, not a finite number"
+        raise InputError(f"weight is {shown}.", file=name, row=i + 2, column="weight",
+                         fix="give the overlay weight as a fraction of NAV, 0 when flat.")
+    series = pd.Series(weights.to_numpy(dtype=float), index=pd.Index(ids.to_numpy(), name="instrument"))
     if sheet is not None:
         unknown = [i for i in series.index if i not in sheet.index]
         if unknown:
@@ -507,7 +544,8 @@ def load_dataset(config: Config, need: Iterable[str] | None = None) -> Dataset:
     elif "states" in wanted:
         require("states", "estimating the state-variable innovations")
         st = config["states"]
-        states = read_states(paths["states"], st["order"], st["market"], freq=freq, units=units)
+        states = read_states(paths["states"], st["order"], st["market"], freq=freq, units=units,
+                             config_file=cfg_file)
     if "assets" in wanted:
         require("assets", "the exposures and prices of risk")
         assets = read_returns(paths["assets"], "assets", freq=freq, units=units)

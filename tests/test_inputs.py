@@ -93,8 +93,19 @@ CASES = {
     "state not in file": (lambda d, c: _set_config(c, '"def", "rf"]', '"default", "rf"]'),
                           ["states.csv", "'default'", "not a column"]),
     "market not first": (lambda d, c: _set_config(c, 'order = ["mkt", "dy"', 'order = ["dy", "mkt"'),
-                         ["states.csv", "must come first"]),
+                         ["larkspur.toml", "must come first"]),
     "state gap": (lambda d, c: _set_cell(d / "states.csv", 100, 3, ""), ["states.csv", "date 1994-02", "column 'term'"]),
+    "impossible day": (lambda d, c: _set_cell(d / "assets.csv", 10, 0, "1986-02-31"), ["assets.csv", "row 10", "1986-02-31"]),
+    "missing nav": (lambda d, c: _set_config(c, "nav = 250_000_000", ""), ["larkspur.toml", "nav is required"]),
+    "lags out of range": (lambda d, c: _set_config(c, "lags = 1", "lags = 40"), ["larkspur.toml", "[states] lags = 40"]),
+    "duplicate state": (lambda d, c: _set_config(c, '"def", "rf"]', '"def", "def"]'), ["larkspur.toml", "twice"]),
+    "duplicate current position": (lambda d, c: (_set_config(c, "[data]\n", '[data]\ncurrent_positions = "cur.csv"\n'),
+                                                 (d / "cur.csv").write_text("instrument,weight\nrate_future_2y,-0.4\n"
+                                                                            "rate_future_2y,-0.3\n")),
+                                   ["cur.csv", "row 3", "listed twice"]),
+    "blank current weight": (lambda d, c: (_set_config(c, "[data]\n", '[data]\ncurrent_positions = "cur.csv"\n'),
+                                           (d / "cur.csv").write_text("instrument,weight\nrate_future_2y,\n")),
+                             ["cur.csv", "row 2", "column 'weight'", "blank"]),
     "ragged row": (lambda d, c: _edit(d / "instruments.csv", lambda ls: ls[:20] + [ls[20] + ",0.1,0.2"] + ls[21:]),
                    ["instruments.csv", "row 21", "malformed"]),
     "duplicate column": (lambda d, c: _edit(d / "assets.csv", lambda ls: [ls[0].replace("insurers", "banks")] + ls[1:]),
@@ -221,3 +232,24 @@ def test_a_command_reads_only_its_files(tmp_path, capsys):
     capsys.readouterr()
     assert main(["hedge", str(cfg)]) == 2
     assert "instruments.csv" in capsys.readouterr().err
+
+
+def test_config_with_byte_order_mark(tmp_path, capsys):
+    cfg = demo_copy(tmp_path)
+    cfg.write_bytes(b"\xef\xbb\xbf" + cfg.read_bytes())
+    assert main(["validate", str(cfg)]) == 0
+
+
+@pytest.mark.parametrize("as_of, end", [("2025-09", "2025-09"), ("2025Q3", "2025-09"), ("2025-Q2", "2025-06"),
+                                        ("2020-06-30", "2020-06")])
+def test_as_of_periods(tmp_path, as_of, end):
+    data = load_dataset(load_config(demo_copy(tmp_path)))
+    assert str(data.as_of(as_of).states.index[-1]) == end
+
+
+@pytest.mark.parametrize("as_of, needle", [("2025", "not a period"), ("2030-01", "after the last period"),
+                                           ("June", "not a period")])
+def test_bad_as_of(tmp_path, as_of, needle):
+    data = load_dataset(load_config(demo_copy(tmp_path)))
+    with pytest.raises(InputError, match=needle):
+        data.as_of(as_of)
