@@ -30,6 +30,7 @@ structure; either way a walk-forward loop re-solves the same compiled program.
 from __future__ import annotations
 
 import math
+import warnings as _warnings
 from collections import OrderedDict
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
@@ -111,19 +112,19 @@ def instrument_covariance(returns: pd.DataFrame, *, periods_per_year: int = 12,
     Rows with any missing instrument are dropped (listwise), which keeps the matrix PSD.
     """
     if not isinstance(returns, pd.DataFrame) or returns.shape[1] == 0:
-        raise InputError("instrument returns must be a non-empty DataFrame",
-                         fix="pass one column per instrument")
+        raise InputError("instrument returns must be a non-empty DataFrame.",
+                         fix="pass one column per instrument.")
     if method not in ("sample", "ledoit-wolf"):
-        raise InputError(f"unknown covariance method '{method}'", column="covariance",
-                         fix="use one of: sample, ledoit-wolf")
+        raise InputError(f"[hedge] covariance method '{method}' is not known; valid: sample, "
+                         "ledoit-wolf.", fix="set covariance = \"sample\" or \"ledoit-wolf\".")
     if periods_per_year <= 0:
-        raise InputError("periods_per_year must be positive", fix="use 12 or 4")
+        raise InputError("periods_per_year must be positive.", fix="use 12 or 4.")
     values = returns.apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)
     x = values[np.isfinite(values).all(axis=1)]
     t, p = x.shape
     if t < 2:
-        raise InputError(f"only {t} month(s) where every instrument has a return",
-                         fix="supply a longer common sample of instrument returns")
+        raise InputError(f"only {t} month(s) where every instrument has a return.",
+                         fix="supply a longer common sample of instrument returns.")
     xc = x - x.mean(axis=0)
     if method == "sample":
         cov = xc.T @ xc / (t - 1)
@@ -183,26 +184,29 @@ class HedgeSpec:
         for name in ("min_weight", "max_weight", "cost_bps"):
             set_(self, name, _frozen_map(getattr(self, name)))
         if self.objective not in ("tracking", "total"):
-            raise InputError(f"unknown hedge objective '{self.objective}'", column="objective",
-                             fix="use one of: tracking, total")
+            raise InputError(f"[hedge] objective '{self.objective}' is not known; valid: "
+                             "tracking, total.", fix="set objective = \"tracking\" or \"total\".")
         if not 0.0 < self.confidence < 1.0:
-            raise InputError(f"confidence {self.confidence} is not inside (0, 1)",
-                             column="confidence", fix="use e.g. 0.95")
+            raise InputError(f"[hedge] confidence {self.confidence} is not inside (0, 1).",
+                             fix="use e.g. confidence = 0.95.")
         if self.premium_weight < 0:
-            raise InputError("premium_weight must be zero or positive", column="premium_weight")
+            raise InputError(f"[hedge] premium_weight {self.premium_weight} is negative.",
+                             fix="use premium_weight = 0 or a positive number.")
         if self.max_gross is not None and not self.max_gross >= 0:
-            raise InputError("max_gross must be zero or positive", column="max_gross")
+            raise InputError(f"[hedge] max_gross {self.max_gross} is negative or not a number.",
+                             fix="give the gross cap as a fraction of NAV, e.g. max_gross = 1.5.")
         tols = self.tolerance.values() if isinstance(self.tolerance, Mapping) else [self.tolerance]
         if any(not v >= 0 for v in tols):
-            raise InputError("tolerance must be zero or positive", column="tolerance")
+            raise InputError("[hedge] tolerance must be zero or positive.",
+                             fix="give a tolerance in beta units, e.g. tolerance = 0.05.")
         for name, (lo, hi) in self.keep.items():
             if not lo <= hi:
-                raise InputError(f"keep band for '{name}' has lower {lo} above upper {hi}",
-                                 column="keep", fix="write the band as [lower, upper]")
+                raise InputError(f"[hedge] keep band for '{name}' has lower {lo:g} above "
+                                 f"upper {hi:g}.", fix="write the band as [lower, upper].")
         both = set(self.neutralise) & set(self.keep)
         if both:
-            raise InputError(f"factor(s) {sorted(both)} are both neutralised and kept in a band",
-                             column="keep", fix="list each factor in one of neutralise or keep")
+            raise InputError(f"[hedge] {_quoted(sorted(both))} both in neutralise and in keep.",
+                             fix="list each factor in one of neutralise or keep.")
 
     @classmethod
     def from_sheet(cls, sheet: pd.DataFrame, **kw: Any) -> HedgeSpec:
@@ -377,10 +381,14 @@ class OverlayProblem:
             if self.structure.robust and solver in _QP_ONLY:
                 continue
             last = solver
-            try:
-                problem.solve(solver=solver, **_SOLVER_OPTIONS[solver])
-            except (cp.error.SolverError, ValueError, ArithmeticError):
-                continue
+            # cvxpy warns "Solution may be inaccurate..." on stderr: caught here, and an
+            # inaccurate status counts as a failed attempt (the next solver is tried).
+            with _warnings.catch_warnings():
+                _warnings.simplefilter("ignore")
+                try:
+                    problem.solve(solver=solver, **_SOLVER_OPTIONS[solver])
+                except (cp.error.SolverError, ValueError, ArithmeticError):
+                    continue
             self.n_solves += 1
             if problem.status == cp.OPTIMAL:
                 return "optimal", solver
@@ -451,8 +459,8 @@ def _risk_factor(sigma: np.ndarray) -> np.ndarray:
     except np.linalg.LinAlgError:
         w, v = np.linalg.eigh(sym)
     if w.min() < -1e-10 * max(w.max(), 1e-300):
-        raise InputError("instrument covariance is not positive semi-definite",
-                         column="covariance", fix="use a listwise sample or method='ledoit-wolf'")
+        raise InputError("the instrument covariance is not positive semi-definite.",
+                         fix="use a listwise sample or [hedge] covariance = \"ledoit-wolf\".")
     return np.sqrt(np.clip(w, 0.0, None))[:, None] * v.T
 
 
@@ -608,9 +616,18 @@ class HedgeResult:
 
 # --------------------------------------------------------------------------- validation
 
-def _names_error(kind: str, bad: list[str], valid: list[str], column: str) -> InputError:
-    return InputError(f"unknown {kind} {bad}", column=column,
-                      fix=f"use one of: {', '.join(map(str, valid))}")
+def _quoted(names: list[str] | tuple[str, ...]) -> str:
+    """'a', 'b' and 'c' for a message."""
+    q = [f"'{n}'" for n in names]
+    return q[0] if len(q) == 1 else ", ".join(q[:-1]) + " and " + q[-1]
+
+
+def _names_error(where: str, kind: str, bad: list[str], valid: list[str]) -> InputError:
+    """"[hedge] neutralise names unknown factor 'credit'; valid: mkt, dy, term, def, rf." """
+    plural = "s" if len(bad) > 1 else ""
+    listed = ", ".join(map(str, valid)) if valid else "none"
+    return InputError(f"{where} names unknown {kind}{plural} {_quoted(bad)}; valid: {listed}.",
+                      fix=f"spell each {kind} as one of the valid names.")
 
 
 def _limits(active: list[str], spec: HedgeSpec, sheet: pd.DataFrame
@@ -630,37 +647,58 @@ def _limits(active: list[str], spec: HedgeSpec, sheet: pd.DataFrame
     cost = column("cost_bps", spec.cost_bps, 0.0) / 1e4
     bad = [a for a, lo_j, hi_j in zip(active, lo, hi, strict=True) if lo_j > hi_j]
     if bad:
-        raise InputError(f"min_weight above max_weight for {bad}", file="instrument_sheet",
-                         column="min_weight", fix="make min_weight <= max_weight")
+        raise InputError(f"min_weight is above max_weight for {_quoted(bad)}.",
+                         file="instrument sheet", column="min_weight",
+                         fix="make min_weight <= max_weight.")
     if np.any(cost < 0):
-        raise InputError("negative cost_bps", file="instrument_sheet", column="cost_bps",
-                         fix="costs are one-way, in basis points of notional, >= 0")
+        bad = [a for a, c in zip(active, cost, strict=True) if c < 0]
+        raise InputError(f"cost_bps is negative for {_quoted(bad)}.", file="instrument sheet",
+                         column="cost_bps",
+                         fix="costs are one-way, in basis points of notional, >= 0.")
     return lo, hi, cost
 
 
 def _check_names(spec: HedgeSpec, factors: list[str], instruments: list[str]) -> None:
-    for kind, names, column in (("factor(s) in neutralise", spec.neutralise, "neutralise"),
-                                ("factor(s) in keep", list(spec.keep), "keep"),
-                                ("factor(s) in targets", list(spec.targets), "targets")):
+    """Every name in the spec must be a factor / instrument of the inputs (config key named)."""
+    for key, names in (("neutralise", spec.neutralise), ("keep", list(spec.keep)),
+                       ("targets", list(spec.targets))):
         bad = [n for n in names if n not in factors]
         if bad:
-            raise _names_error(kind, bad, factors, column)
+            raise _names_error(f"[hedge] {key}", "factor", bad, factors)
     off = [n for n in spec.targets if n not in spec.neutralise]
     if off:
-        raise InputError(f"targets given for factor(s) {off} that are not neutralised",
-                         column="targets", fix="add them to neutralise or drop the targets")
+        raise InputError(f"[hedge] targets names {_quoted(off)}, not in neutralise; valid: "
+                         f"{', '.join(spec.neutralise) or 'none'}.",
+                         fix="add them to neutralise or drop the targets.")
     if isinstance(spec.tolerance, Mapping):
         bad = [n for n in spec.tolerance if n not in spec.neutralise]
         if bad:
-            raise _names_error("factor(s) in tolerance", bad, list(spec.neutralise), "tolerance")
+            raise _names_error("[hedge] tolerance", "factor", bad, list(spec.neutralise))
     bad = [n for n in spec.exclude if n not in instruments]
     if bad:
-        raise _names_error("instrument(s) in exclude", bad, instruments, "exclude")
+        raise _names_error("[hedge] exclude", "instrument", bad, instruments)
     for name, mapping in (("min_weight", spec.min_weight), ("max_weight", spec.max_weight),
                           ("cost_bps", spec.cost_bps)):
         bad = [n for n in (mapping or {}) if n not in instruments]
         if bad:
-            raise _names_error(f"instrument(s) in {name}", bad, instruments, name)
+            raise _names_error(f"the {name} limits", "instrument", bad, instruments)
+
+
+def _current_weights(current: pd.Series, instruments: list[str]) -> np.ndarray:
+    """Current overlay weights in instrument order (instruments not listed hold 0)."""
+    cur = _labels(pd.Series(current))
+    bad = [i for i in cur.index if i not in instruments]
+    if bad:
+        raise _names_error("the current-positions file", "instrument", bad, instruments)
+    values = pd.to_numeric(cur, errors="coerce").to_numpy(dtype=float)
+    for name, value in zip(cur.index, values, strict=True):
+        if not math.isfinite(value):
+            raise InputError(f"weight for '{name}' is blank or not finite.",
+                             file="current-positions file", column="weight",
+                             fix="give every listed instrument a weight (fraction of NAV), "
+                                 "or drop its row.")
+    return np.nan_to_num(_take(pd.Series(values, index=cur.index), instruments)
+                         .to_numpy(dtype=float))
 
 
 def _labels(obj: pd.Series | pd.DataFrame) -> pd.Series | pd.DataFrame:
@@ -691,8 +729,8 @@ def _numeric(frame: pd.DataFrame | pd.Series, what: str) -> np.ndarray:
             if isinstance(frame, pd.DataFrame) else pd.to_numeric(frame, errors="coerce")
         arr = np.asarray(values, dtype=float)
     if not np.all(np.isfinite(arr)):
-        raise InputError(f"{what} has missing or non-numeric values",
-                         fix=f"supply a number for every entry of {what}")
+        raise InputError(f"{what} has missing or non-numeric values.",
+                         fix=f"supply a number for every entry of {what}.")
     return arr
 
 
@@ -719,11 +757,11 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
     exposure, then least tracking variance), otherwise no overlay.
     """
     if not isinstance(instrument_betas, pd.DataFrame) or instrument_betas.empty:
-        raise InputError("instrument betas must be a non-empty DataFrame (instrument x factor)",
-                         fix="estimate the instruments' exposures first")
+        raise InputError("instrument betas must be a non-empty DataFrame (instrument x factor).",
+                         fix="estimate the instruments' exposures first.")
     if not nav > 0 or not math.isfinite(nav):
-        raise InputError(f"nav must be a positive number, got {nav}", column="nav",
-                         fix="set [portfolio] nav to the fund's net asset value")
+        raise InputError(f"[portfolio] nav must be a positive number, got {nav}.",
+                         fix="set [portfolio] nav to the fund's net asset value.")
     instruments = [str(i) for i in instrument_betas.index]
     factors = [str(f) for f in instrument_betas.columns]
     inst_b = _take(instrument_betas, instruments, factors)
@@ -732,56 +770,55 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
     sheet = _sheet_frame(sheet)
     missing = [i for i in instruments if i not in sheet.index]
     if missing:
-        raise InputError(f"instrument(s) {missing} are not in the instrument sheet",
-                         file="instrument_sheet", column="instrument",
-                         fix="add a row with multiplier and price for each instrument")
+        raise InputError(f"{_quoted(missing)} {'is' if len(missing) == 1 else 'are'} not in "
+                         "the instrument sheet.", file="instrument sheet", column="instrument",
+                         fix="add a row with multiplier and price for each instrument.")
     for col in ("multiplier", "price"):
         if col not in sheet.columns:
-            raise InputError(f"the instrument sheet has no '{col}' column", file="instrument_sheet",
-                             column=col, fix=f"columns needed: {', '.join(SHEET_COLUMNS)}")
+            raise InputError(f"the instrument sheet has no '{col}' column.",
+                             file="instrument sheet",
+                             fix=f"columns needed: {', '.join(SHEET_COLUMNS)}.")
     sheet_h = _take(sheet, instruments)
     unit = _numeric(sheet_h["multiplier"], "multiplier") * _numeric(sheet_h["price"], "price")
     if np.any(unit <= 0):
         bad = [i for i, u in zip(instruments, unit, strict=True) if u <= 0]
-        raise InputError(f"price x multiplier is not positive for {bad}", file="instrument_sheet",
-                         column="price", fix="prices and multipliers must be positive")
+        raise InputError(f"price x multiplier is not positive for {_quoted(bad)}.",
+                         file="instrument sheet", column="price",
+                         fix="prices and multipliers must be positive.")
 
     book_b = _labels(pd.Series(book_betas))
     lost = [f for f in factors if f not in book_b.index]
     if lost:
-        raise InputError(f"book betas lack factor(s) {lost}", column="book_betas",
-                         fix="estimate the book's exposure on the instruments' factors")
+        raise InputError(f"the book's betas lack {_quoted(lost)}.",
+                         fix="estimate the book's exposure on the instruments' factors.")
     b_p = _numeric(_take(book_b, factors), "book betas")
     B_all = _numeric(inst_b, "instrument betas")          # H x K
 
     cov = _labels(covariance)
     missing = [i for i in instruments if i not in cov.index or i not in cov.columns]
     if missing:
-        raise InputError(f"covariance lacks instrument(s) {missing}", column="covariance",
-                         fix="compute it with instrument_covariance on the same instruments")
+        raise InputError(f"the instrument covariance lacks {_quoted(missing)}.",
+                         fix="compute it with instrument_covariance on the same instruments.")
     sigma_all = _numeric(_take(cov, instruments, instruments), "instrument covariance")
     if not np.allclose(sigma_all, sigma_all.T, rtol=1e-8, atol=1e-14):
-        raise InputError("instrument covariance is not symmetric", column="covariance")
+        raise InputError("the instrument covariance is not symmetric.",
+                         fix="compute it with instrument_covariance.")
 
     h0_all = np.zeros(len(instruments))
     if current is not None:
-        cur = _labels(pd.Series(current))
-        bad = [i for i in cur.index if i not in instruments]
-        if bad:
-            raise _names_error("instrument(s) in current positions", bad, instruments, "current")
-        h0_all = _numeric(_take(cur, instruments).fillna(0.0), "current")
+        h0_all = _current_weights(current, instruments)
 
     se_p = se_B_all = None
     if book_se is not None or instrument_se is not None:
         if book_se is None or instrument_se is None:
-            raise InputError("give both book_se and instrument_se, or neither",
-                             fix="pass the standard errors from the exposures stage")
+            raise InputError("give both book_se and instrument_se, or neither.",
+                             fix="pass the standard errors from the exposures stage.")
         se_p = np.abs(_numeric(_take(_labels(pd.Series(book_se)), factors), "book_se"))
         se_B_all = np.abs(_numeric(_take(_labels(instrument_se), instruments, factors),
                                    "instrument_se"))
     if spec.robust and se_p is None:
-        raise InputError("the robust overlay needs book_se and instrument_se", column="robust",
-                         fix="pass the betas' standard errors or set robust = false")
+        raise InputError("[hedge] robust = true needs the betas' standard errors (book_se and "
+                         "instrument_se).", fix="pass them or set robust = false.")
 
     warnings: list[str] = []
     lam = None
@@ -789,17 +826,18 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
         prem = _labels(pd.Series(premia))
         absent = [f for f in factors if f not in prem.index]
         if absent:
-            warnings.append(f"no price of risk for {absent}: their premium counts as zero")
+            warnings.append(f"no price of risk for {_quoted(absent)}: their premium counts "
+                            "as zero.")
         lam = np.nan_to_num(pd.to_numeric(_take(prem, factors), errors="coerce")
                             .to_numpy(dtype=float))
     if spec.premium_weight > 0 and lam is None:
-        raise InputError("premium_weight > 0 needs the prices of risk", column="premium_weight",
-                         fix="pass premia from the Fama-MacBeth stage or set premium_weight = 0")
+        raise InputError("[hedge] premium_weight > 0 needs the prices of risk.",
+                         fix="pass premia from the Fama-MacBeth stage or set premium_weight = 0.")
 
     c_pH_all = None
     if spec.objective == "total" and (book_variance is None or book_instrument_cov is None):
-        raise InputError("objective 'total' needs book_variance and book_instrument_cov",
-                         column="objective", fix="pass them or use objective = 'tracking'")
+        raise InputError("[hedge] objective = \"total\" needs book_variance and "
+                         "book_instrument_cov.", fix="pass them or use objective = \"tracking\".")
     if book_variance is not None and book_instrument_cov is not None:
         c_pH_all = _numeric(_take(_labels(pd.Series(book_instrument_cov)), instruments),
                             "book_instrument_cov")
@@ -816,8 +854,8 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
     elif problem is None:
         problem = _cached_problem(structure)
     elif problem.structure != structure:
-        raise InputError("the OverlayProblem passed was built for other instruments or limits",
-                         fix="build it with OverlayProblem.for_inputs on the same spec and sheet")
+        raise InputError("the OverlayProblem passed was built for other instruments or limits.",
+                         fix="build it with OverlayProblem.for_inputs on the same spec and sheet.")
 
     z = float(stats.norm.ppf(0.5 + spec.confidence / 2))
     sigma = sigma_all[np.ix_(act, act)]
@@ -928,13 +966,13 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
                 if closest:
                     h_act = h_c
                     objective_value = closest_value
-                    message = (f"Targets for {unreachable} cannot be reached; the positions are "
+                    message = (f"Targets for {_quoted(unreachable)} cannot be reached; the positions are "
                                "the closest overlay (least remaining exposure, then least "
                                f"{spec.objective} variance).")
                 else:
-                    message = (f"Targets for {unreachable} cannot be reached with these "
-                               "instruments and limits; no overlay proposed (closest=True "
-                               "gives the closest reachable one).")
+                    message = (f"Targets for {_quoted(unreachable)} cannot be reached with these "
+                               "instruments and limits; no overlay proposed: use --closest "
+                               "(or [hedge] closest = true) for the closest reachable overlay.")
                 if binding:
                     message += " Limiting: " + "; ".join(dict.fromkeys(binding)) + "."
     if status == "optimal":

@@ -221,6 +221,9 @@ def test_instruments_without_exposure_to_a_factor_are_unreachable():
     assert any("extra" in b and "no active instrument" in b for b in res.binding)
     np.testing.assert_array_equal(res.positions.to_numpy(), 0.0)      # no overlay proposed
     np.testing.assert_allclose(res.exposure_after, res.exposure_before)
+    assert res.message.startswith("Targets for 'extra' cannot be reached")
+    assert ("use --closest (or [hedge] closest = true) for the closest reachable overlay."
+            in res.message) and "closest=True" not in res.message
     closest = design_overlay(book, betas, cov, sheet, nav=1e8, spec=spec, closest=True)
     assert closest.status == "unreachable" and closest.unreachable == ("extra",)
     assert abs(closest.exposure_after["term"]) < 1e-7          # what can be hedged is
@@ -341,18 +344,62 @@ def test_problem_is_built_once_and_re_solved_with_new_numbers():
 
 # ------------------------------------------------------------------ bad input
 
-@pytest.mark.parametrize("spec_kw, match", [
-    ({"neutralise": ("trem",)}, "trem"),
-    ({"keep": {"mkk": (0.9, 1.1)}}, "mkk"),
-    ({"neutralise": ("term",), "targets": {"dfe": 0.1}}, "dfe"),
-    ({"neutralise": ("term",), "targets": {"def": 0.1}}, "not neutralised"),
-    ({"neutralise": ("term",), "exclude": ("inst_99",)}, "inst_99"),
+VALID = "valid: mkt, dy, term, def, rf, extra."
+
+
+@pytest.mark.parametrize("spec_kw, text", [
+    ({"neutralise": ("credit",)}, "[hedge] neutralise names unknown factor 'credit'; " + VALID),
+    ({"keep": {"mkk": (0.9, 1.1)}}, "[hedge] keep names unknown factor 'mkk'; " + VALID),
+    ({"neutralise": ("term",), "targets": {"dfe": 0.1}},
+     "[hedge] targets names unknown factor 'dfe'; " + VALID),
+    ({"neutralise": ("term",), "targets": {"def": 0.1}},
+     "[hedge] targets names 'def', not in neutralise; valid: term."),
+    ({"neutralise": ("term",), "tolerance": {"def": 0.1}},
+     "[hedge] tolerance names unknown factor 'def'; valid: term."),
+    ({"neutralise": ("term",), "exclude": ("inst_99", "inst_x")},
+     "[hedge] exclude names unknown instruments 'inst_99' and 'inst_x'; valid: inst_0,"),
 ])
-def test_unknown_names_raise_input_error_listing_valid_ones(spec_kw, match):
+def test_unknown_names_raise_input_error_naming_the_config_key(spec_kw, text):
+    """The message names the key as a user writes it, lists the valid names and ends with a
+    period before " Fix:"; no CSV column is named for a configuration key."""
     betas, cov, book, sheet = make_case(16)
-    with pytest.raises(InputError, match=match) as err:
+    with pytest.raises(InputError) as err:
         design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec(**spec_kw))
-    assert err.value.fix
+    msg = str(err.value)
+    assert msg.startswith(text)
+    assert err.value.fix and ". Fix: " in msg and err.value.column is None
+
+
+@pytest.mark.parametrize("value", [np.nan, np.inf, "abc"])
+def test_current_positions_blank_or_infinite_weight_is_named(value):
+    """A blank, infinite or text weight in the current positions names the instrument and
+    the weight column, never a numpy repr."""
+    betas, cov, book, sheet = make_case(16)
+    current = pd.Series({"inst_1": 0.1, "inst_3": value}, dtype=object)
+    with pytest.raises(InputError) as err:
+        design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec(neutralise=("term",)),
+                       current=current)
+    msg = str(err.value)
+    assert "weight for 'inst_3' is blank or not finite." in msg
+    assert "current-positions file" in msg and "'weight'" in msg and "np." not in msg
+    with pytest.raises(InputError, match=r"current-positions file names unknown instrument "
+                                         r"'inst_9'; valid: inst_0"):
+        design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec(neutralise=("term",)),
+                       current=pd.Series({"inst_9": 0.1}))
+
+
+def test_spec_messages_end_with_a_period_and_name_the_key():
+    """HedgeSpec's own checks read "[hedge] <key> ...", end with '.', and name no column."""
+    cases = [dict(objective="variance"), dict(confidence=1.5), dict(premium_weight=-1.0),
+             dict(max_gross=-0.1), dict(tolerance=-0.1), dict(keep={"mkt": (1.1, 0.9)}),
+             dict(neutralise=("mkt",), keep={"mkt": (0.9, 1.1)})]
+    for kw in cases:
+        with pytest.raises(InputError) as err:
+            HedgeSpec(**kw)
+        msg = str(err.value)
+        assert msg.startswith("[hedge] "), msg
+        assert msg.split(" Fix: ")[0].endswith("."), msg
+        assert err.value.column is None
 
 
 def test_other_bad_input():
@@ -412,6 +459,33 @@ def test_never_reports_a_non_optimal_status(monkeypatch):
     monkeypatch.setattr("cvxpy.Problem.solve", inaccurate)
     with pytest.raises(OverlaySolveError):
         solve(19)
+
+
+def test_inaccurate_solutions_fall_through_silently(monkeypatch):
+    """cvxpy's "Solution may be inaccurate" UserWarning is caught inside the solve and an
+    'optimal_inaccurate' status counts as a failed attempt: the next solver answers and no
+    library warning reaches the caller (or stderr)."""
+    import warnings
+
+    first = solve(18)
+    original = cp.Problem.solve
+
+    def noisy(self, *args, solver=None, **kw):
+        out = original(self, *args, solver=solver, **kw)
+        if solver == "CLARABEL":
+            warnings.warn("Solution may be inaccurate. Try another solver, adjusting the "
+                          "solver settings, or solve with verbose=True for more information.",
+                          UserWarning, stacklevel=2)
+            self._status = cp.OPTIMAL_INACCURATE
+        return out
+
+    monkeypatch.setattr("cvxpy.Problem.solve", noisy)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        again = solve(18)
+    assert not caught, [str(w.message) for w in caught]
+    assert again.status == "optimal" and again.solver in ("OSQP", "SCS")
+    np.testing.assert_allclose(again.positions, first.positions, atol=1e-5)
 
 
 def test_ledoit_wolf_covariance_and_quarterly_premium():
