@@ -50,6 +50,16 @@ def _write_tables(args, tables: dict[str, pd.DataFrame]) -> None:
     _note(f"tables written to {folder}/: {', '.join(f'{n}.csv' for n, f in tables.items() if f is not None)}")
 
 
+def _print_notes(*results) -> None:
+    """The stages' warnings, on stderr (the tables and the JSON stay clean)."""
+    seen: set[str] = set()
+    for res in results:
+        for w in getattr(res, "warnings", ()) or ():
+            if w not in seen:
+                seen.add(w)
+                _note(f"note: {w}")
+
+
 def _load(args, command: str):
     config = load_config(args.config)
     data = load_dataset(config, need=NEEDS.get(command))
@@ -82,6 +92,7 @@ def cmd_exposures(args):
     config, data = _load(args, "exposures")
     st = pipeline.run_stages(config, data, "exposures")
     res = st.exposures
+    _print_notes(st.factor_set.states, res)
     impacts = pipeline.surprise_impacts(res, st.factor_set, config["portfolio"]["nav"])
     if not args.json:
         display.show_exposures(_console(args), res, st.factor_set, config, impacts)
@@ -95,6 +106,7 @@ def cmd_premia(args):
     config, data = _load(args, "premia")
     st = pipeline.run_stages(config, data, "premia")
     res = st.premia
+    _print_notes(st.factor_set.states, st.exposures, res)
     if not args.json:
         display.show_premia(_console(args), res, st.exposures, data.periods_per_year)
     _write_tables(args, {"premia": res.to_frame(), "pricing_errors": res.pricing_errors.to_frame("pricing_error"),
@@ -111,7 +123,9 @@ def _hedge_code(res) -> int:
 
 def cmd_hedge(args):
     config, data = _load(args, "hedge")
-    res = pipeline.run_stages(config, data, "hedge", closest=args.closest).hedge
+    st = pipeline.run_stages(config, data, "hedge", closest=args.closest)
+    res = st.hedge
+    _print_notes(st.factor_set.states, st.exposures, st.premia, res)
     if not args.json:
         con = _console(args)
         display.show_hedge(con, res, config)
@@ -128,6 +142,7 @@ def cmd_stress(args):
               if args.closest else "note: hedge targets unreachable; the book is stressed without an overlay "
                                    "(use --closest for the closest reachable one)")
     res = st.stress
+    _print_notes(st.factor_set.states, st.exposures, st.premia, st.hedge, res)
     if not args.json:
         con = _console(args)
         display.show_stress(con, res, config)
@@ -142,6 +157,7 @@ def cmd_backtest(args):
     ex = pipeline.run_stages(config, data, "exposures").exposures
     with display.progress_bar("walk-forward") as tick:
         res = pipeline.run_backtest_stage(config, data, ex, progress=tick, rebalance=args.rebalance)
+    _print_notes(ex, res)
     if not args.json:
         con = _console(args)
         display.show_backtest(con, res, config)
@@ -167,36 +183,55 @@ def _record_earlier_run(config, data, as_of: str) -> None:
     _note(f"... stored the run as of {as_of} for the quarter-on-quarter comparison")
 
 
+def _run_tables(run) -> dict[str, pd.DataFrame | None]:
+    """Every stage's tables, for ``--out`` on the whole job."""
+    st = run.factor_set.states
+    ex = run.exposures
+    tables: dict[str, pd.DataFrame | None] = {
+        "innovations_orthogonal": st.orthogonal if st is not None else None,
+        "var_coefficients": st.to_frame() if st is not None else None,
+        "exposures_book": ex.to_frame(), "exposures_assets": ex.assets.to_frame(),
+        "exposures_instruments": ex.instruments.to_frame() if ex.instruments is not None else None,
+        "exposures_rolling_book": ex.rolling_book,
+        "premia": run.premia.to_frame() if run.premia is not None else None,
+        "hedge_ticket": run.hedge.to_frame() if run.hedge is not None else None,
+        "stress": run.stress.to_frame() if run.stress is not None else None,
+        "backtest_periods": run.backtest.to_frame() if run.backtest is not None else None,
+    }
+    return tables
+
+
 def _whole_job(args, config_path: Path, *, earlier: bool = False):
     config = load_config(config_path)
     data = load_dataset(config)
-    if earlier and config["store"]["enabled"] and not getattr(args, "no_store", False):
+    storing = config["store"]["enabled"] and not getattr(args, "no_store", False)
+    store_path = Path(config["store"]["path"])
+    if earlier and storing:
         _record_earlier_run(config, data, _previous_quarter(data))
-    if getattr(args, "as_of", None):
-        data = data.as_of(args.as_of)
-    for w in data.warnings:
-        _note(f"note: {w}")
+    as_of = getattr(args, "as_of", None)
+    if as_of:
+        data = data.as_of(as_of)
+    if args.json:
+        for w in data.warnings:
+            _note(f"note: {w}")
     with display.progress_bar("walk-forward") as tick:
         run = pipeline.run_all(config, data=data, backtest=getattr(args, "backtest", False),
                                closest=getattr(args, "closest", False), progress=lambda s: _note(f"... {s}"),
                                backtest_progress=tick)
     payload = run.to_dict()
-    store = None
-    if config["store"]["enabled"] and not getattr(args, "no_store", False):
+    if storing and store_path.exists():  # the store is created only when a run is recorded
         from .store import RunStore
-        store = RunStore(Path(config["store"]["path"]))
-        payload["history"] = store.compare_with_previous(payload, config["store"]["change_threshold"])
-    report_paths = {}
-    try:
-        from .report import write_report
-        report_paths = write_report(payload, Path(config["report"]["output"]),
-                                    formats=tuple(config["report"]["formats"]))
-        payload["report"] = {k: str(v) for k, v in report_paths.items()}
-    except ImportError:  # pragma: no cover - report module always ships
-        pass
-    if store is not None:
-        run_id = store.record(payload, config.text, str(report_paths.get("html", "")))
-        payload["run_id"] = run_id
+        payload["history"] = RunStore(store_path).compare_with_previous(payload, config["store"]["change_threshold"])
+    from .report import write_report
+    # A run re-created --as-of an earlier period gets its own report name: the current one stays.
+    name = f"report_{run.meta['sample_end']}" if as_of else "report"
+    report_paths = write_report(payload, Path(config["report"]["output"]),
+                                formats=tuple(config["report"]["formats"]), name=name)
+    payload["report"] = {k: str(v) for k, v in report_paths.items()}
+    if storing:
+        from .store import RunStore
+        payload["run_id"] = RunStore(store_path).record(payload, config.text, str(report_paths.get("html", "")))
+    _write_tables(args, _run_tables(run))
     if not args.json:
         con = _console(args)
         display.show_run(con, run, payload)
@@ -254,4 +289,7 @@ def cmd_validate(args):
 
 
 def dispatch(args):
+    out = getattr(args, "out", None)
+    if out and Path(out).exists() and not Path(out).is_dir():  # before any work is done
+        raise InputError("--out must name a folder, not a file.", file=str(out), fix="pass a folder name.")
     return globals()[f"cmd_{args.command}"](args)

@@ -175,15 +175,20 @@ def show_states(con: Console, res) -> None:
     plain = _plain(con)
     v = list(res.variables)
     regs = list(res.coef.columns)
-    rows = []
-    for eq in v:
-        cells = [eq, fmt(res.intercept[eq], 4) + stars(res.intercept_t[eq])]
-        cells += [fmt(res.coef.loc[eq, r], 3) + stars(res.coef_t.loc[eq, r]) for r in regs]
-        cells.append(fmt(res.r2[eq], 3))
-        rows.append(cells)
-    con.print(table(f"VAR({res.lags}) of the state vector, {res.nobs} periods "
-                    f"({res.raw.index[0]} to {res.raw.index[-1]})", ["equation", "const", *regs, "R2"], rows,
-                    plain=plain, caption="* 10 %, ** 5 %, *** 1 % (two-sided, OLS standard errors)"))
+    # One table per lag keeps each readable in 100 columns; the full set is in --json / --out.
+    for lag in range(1, res.lags + 1):
+        cols = [r for r in regs if r.endswith(f".L{lag}")]
+        rows = []
+        for eq in v:
+            cells = [eq] + ([fmt(res.intercept[eq], 4) + stars(res.intercept_t[eq])] if lag == 1 else [])
+            cells += [fmt(res.coef.loc[eq, r], 3) + stars(res.coef_t.loc[eq, r]) for r in cols]
+            cells += [fmt(res.r2[eq], 3)] if lag == 1 else []
+            rows.append(cells)
+        head = ["equation"] + (["const"] if lag == 1 else []) + cols + (["R2"] if lag == 1 else [])
+        title = (f"VAR({res.lags}) of the state vector, {res.nobs} periods ({res.raw.index[0]} to "
+                 f"{res.raw.index[-1]})" if lag == 1 else f"VAR({res.lags}): lag {lag} coefficients")
+        con.print(table(title, head, rows, plain=plain,
+                        caption="* 10 %, ** 5 %, *** 1 % (two-sided, OLS standard errors)" if lag == res.lags else None))
     mod = res.max_eigen_modulus
     if res.stable:
         con.print(f"Stability: largest companion eigenvalue modulus {mod:.4f} (< 1: stationary).")
@@ -214,14 +219,15 @@ def show_exposures(con: Console, res, fs, config, impacts=None) -> None:
     sd = res.factor_sd
     extra = [lambda f: fmt(res.book[f] * sd[f], 2, pct=True),
              lambda f: fmt(res.book[f] * sd[f] * nav, money=True)]
-    cols = ["factor", "beta", "HAC se", "t", "1-sd shock", f"1-sd P&L ({config['portfolio']['currency']})"]
+    cols = ["factor", "beta", "HAC se", "t", "1-sd move, % NAV", f"1-sd P&L ({config['portfolio']['currency']})"]
     if res.book_direct is not None and res.book_gap is not None:
         cols += ["direct", "gap"]
         extra += [lambda f: fmt(res.book_direct.betas.iloc[0][f], 3), lambda f: fmt(res.book_gap[f], 3)]
     con.print(table(f"Book exposures ({res.book_source}), {fs.factors.index[0]} to {fs.factors.index[-1]}",
                     cols, _exposure_rows(res.book, res.book_se, extra), plain=plain,
-                    caption="Factors: market excess return and orthogonal innovations (same sd). "
-                            "* 10 %, ** 5 %, *** 1 %"))
+                    caption=("Factors: the market excess return" if config["states"]["market_factor"] == "return"
+                             else "Factors: the market innovation") + " and orthogonal innovations (same sd); "
+                            "a 1-sd move is one standard deviation of the factor. * 10 %, ** 5 %, *** 1 %"))
     if impacts is not None:
         ccy = config["portfolio"]["currency"]
         rows = [[v, fmt(r["isolated_return"], 2, pct=True), money_short(r["isolated_pnl"]),
@@ -261,7 +267,7 @@ def show_premia(con: Console, res, exposures, periods_per_year: int) -> None:
     for f in res.lambda_.index:
         lam = res.lambda_[f]
         rows.append([f, fmt(lam, 4), fmt(lam * periods_per_year, 2, pct=True), fmt(res.t_fm[f], 2) + stars(res.t_fm[f]),
-                     fmt(res.t_nw[f], 2), fmt(res.t_shanken[f], 2) + stars(res.t_shanken[f])])
+                     fmt(res.t_nw[f], 2) + stars(res.t_nw[f]), fmt(res.t_shanken[f], 2) + stars(res.t_shanken[f])])
     label = "Shanken t (approx.)" if res.shanken_approximate else "Shanken t"
     skipped = f"{res.n_skipped} skipped" + (" (incl. the warm-up before the first rolling window)"
                                             if res.betas_used == "rolling" and res.n_skipped else "")

@@ -21,6 +21,7 @@ def atomic_write_text(path: Path, text: str) -> None:
             fh.write(text)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, 0o644)  # mkstemp makes 0600; outputs are ordinary readable files
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)

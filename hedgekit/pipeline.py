@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import datetime as _dt
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -92,9 +92,39 @@ def run_exposures(config: Config, data: Dataset, fs: FactorSet):
         raise InputError("neither [data] holdings nor [data] portfolio_returns is set; the book's exposure "
                          "needs one of them.", file=_cfg_file(config),
                          fix='add holdings = "holdings.csv" under [data].')
-    return estimate_exposures(fs.factors, data.assets, instruments=data.instruments, holdings=holdings,
-                              portfolio_returns=data.portfolio_returns, window=window,
-                              min_obs=ex["min_obs"], hac_lags=ex["hac_lags"])
+    periods = len(fs.factors)
+    unit = "quarters" if data.frequency == "quarterly" else "months"
+    k = fs.factors.shape[1]
+    if window is not None and window < k + 2:
+        raise InputError(f"[exposures] window = {window} is too short for {k} factors and an intercept.",
+                         file=_cfg_file(config), fix=f"use at least {k + 2} (60 months is the usual choice).")
+    if ex["min_obs"] < k + 2:
+        raise InputError(f"[exposures] min_obs = {ex['min_obs']} is below the {k + 2} {unit} a regression on "
+                         f"{k} factors needs.", file=_cfg_file(config), fix=f"use at least {k + 2}.")
+    lags = ex["hac_lags"]
+    if isinstance(lags, int) and lags >= periods:
+        raise InputError(f"[exposures] hac_lags = {lags} is not below the {periods} {unit} of the sample.",
+                         file=_cfg_file(config), fix='use "auto" (floor(4 (T/100)^(2/9))) or a smaller number.')
+    notes: list[str] = []
+    if window is not None and window >= periods:
+        notes.append(f"[exposures] window = {window} is not shorter than the sample ({periods} {unit}): the "
+                     "rolling exposures are expanding-window estimates.")
+    if holdings is not None:
+        held = data.assets[holdings.index].reindex(fs.factors.index)
+        valid = held.notna().sum()
+        last = held.apply(lambda c: c.last_valid_index())
+        end = fs.factors.index[-1]
+        for name in holdings.index[valid.to_numpy() < ex["min_obs"]]:
+            notes.append(f"held asset {name!r} has {int(valid[name])} valid {unit}, fewer than [exposures] "
+                         f"min_obs = {ex['min_obs']}: its beta is unreliable or missing.")
+        for name in holdings.index:
+            if last[name] is not None and (end - last[name]).n >= (12 if unit == "months" else 4):
+                notes.append(f"held asset {name!r} has no returns after {last[name]} (the sample ends {end}): "
+                             "its exposure is estimated on old data.")
+    res = estimate_exposures(fs.factors, data.assets, instruments=data.instruments, holdings=holdings,
+                             portfolio_returns=data.portfolio_returns, window=window,
+                             min_obs=ex["min_obs"], hac_lags=ex["hac_lags"])
+    return replace(res, warnings=tuple(notes) + tuple(res.warnings)) if notes else res
 
 
 def surprise_impacts(exposures, fs: FactorSet, nav: float, *, size: float = 0.01) -> pd.DataFrame:

@@ -171,3 +171,28 @@ def test_internal_error_exit_1_without_traceback(tmp_path, capsys, monkeypatch):
     code = main(["exposures", str(cfg)])
     err = capsys.readouterr().err
     assert code == 1 and "simulated failure" in err and "Traceback" not in err
+
+
+def test_run_out_as_of_and_failed_run_leaves_no_store(tmp_path, capsys):
+    cfg = demo_copy(tmp_path)
+    out = tmp_path / "tables"
+    assert main(["run", str(cfg), "--json", "--as-of", "2024-12", "--out", str(out)]) == 0
+    payload = json.loads(capsys.readouterr().out)
+    assert payload["meta"]["sample_end"] == "2024-12"
+    assert Path(payload["report"]["html"]).name == "report_2024-12.html"  # the current report is not replaced
+    assert {"hedge_ticket.csv", "exposures_book.csv", "premia.csv", "stress.csv"} <= {p.name for p in out.iterdir()}
+    assert oct((out / "hedge_ticket.csv").stat().st_mode & 0o777) == "0o644"
+    # a run that fails on its inputs creates neither a store nor a report
+    cfg2 = demo_copy(tmp_path / "b")
+    (cfg2.parent / "instruments.csv").write_text("date,x\n")
+    assert main(["run", str(cfg2)]) == 2
+    assert not (cfg2.parent / "hedgekit_runs.sqlite").exists()
+    assert not (cfg2.parent / "hedgekit_output").exists()
+
+
+def test_out_that_is_a_file_fails_before_any_work(tmp_path, capsys):
+    cfg = demo_copy(tmp_path)
+    target = tmp_path / "file.txt"
+    target.write_text("x")
+    assert main(["hedge", str(cfg), "--out", str(target)]) == 2
+    assert "--out must name a folder" in capsys.readouterr().err

@@ -137,3 +137,38 @@ def test_user_scenario_from_config(tmp_path):
     expected = float(run.exposures.book.reindex(s.index).to_numpy() @ fs.transform.to_numpy() @ s.to_numpy())
     assert row["unhedged"] == pytest.approx(expected, abs=1e-12)
     assert row["unhedged_ccy"] == pytest.approx(expected * 250_000_000, rel=1e-9)
+
+
+def _blank_after(cfg, column: str, last: str) -> None:
+    path = cfg.parent / "assets.csv"
+    frame = pd.read_csv(path, index_col=0)
+    frame.loc[frame.index > last, column] = np.nan
+    frame.to_csv(path)
+
+
+def test_held_asset_with_stale_or_short_history_is_flagged(tmp_path):
+    cfg = demo_copy(tmp_path)
+    _blank_after(cfg, "banks", "2017-12")
+    config = load_config(cfg)
+    ex = pipeline.run_stages(config, load_dataset(config), "exposures").exposures
+    assert any("'banks' has no returns after 2017-12" in w for w in ex.warnings)
+    cfg2 = demo_copy(tmp_path / "b")
+    path = cfg2.parent / "assets.csv"
+    frame = pd.read_csv(path, index_col=0)
+    frame.loc[frame.index < "2025-01", "banks"] = np.nan
+    frame.to_csv(path)
+    config = load_config(cfg2)
+    ex = pipeline.run_stages(config, load_dataset(config), "exposures").exposures
+    assert any("'banks' has 12 valid months, fewer than [exposures] min_obs = 36" in w for w in ex.warnings)
+
+
+@pytest.mark.parametrize("old, new, needle", [
+    ("min_obs = 36", "min_obs = 36\nhac_lags = 500", "hac_lags = 500"),
+    ("window = 60\nmin_obs = 36", "window = 5\nmin_obs = 5", "too short"),
+])
+def test_exposure_settings_that_cannot_work(tmp_path, old, new, needle):
+    cfg = demo_copy(tmp_path)
+    cfg.write_text(cfg.read_text().replace(old, new))
+    config = load_config(cfg)
+    with pytest.raises(InputError, match=needle):
+        pipeline.run_stages(config, load_dataset(config), "exposures")
