@@ -7,7 +7,7 @@ At each rebalance date τ (quarter ends by default, or every month) and with dat
    is the one-step forecast error of the VAR fitted through t-1, orthogonalised with that
    fit's M (:func:`hedgekit.states.realtime_innovations`);
 2. time-series OLS betas of the book and of each instrument on those factors (expanding,
-   or the last ``beta_window`` factor months), each series on its own valid months, and the
+   or the last ``beta_window`` factor periods), each series on its own valid periods, and the
    annualised sample covariance of the instruments (listwise, divisor n - 1).  These come
    for every rebalance date at once from running sums of cross-products (a batched solve;
    the tests check them against :func:`hedgekit.exposures.time_series_betas` and
@@ -20,10 +20,13 @@ At each rebalance date τ (quarter ends by default, or every month) and with dat
 
 The overlay h_τ (weights of NAV, held constant over the holding period, a common practice
 simplification) earns h_τ' r_{H,t} over τ+1 .. next rebalance; the cost of the trade is
-paid in month τ+1.  Every estimate at τ is computed on data sliced at τ, so changing any
+paid in period τ+1.  "Period" is a month for monthly data and a quarter for quarterly data
+(``periods_per_year`` 12 or 4); every window length (``min_window``, ``window``,
+``beta_window``, ``beta_min_obs``) counts periods, and the result's ``period_label`` says
+which word applies.  Every estimate at τ is computed on data sliced at τ, so changing any
 value dated after τ cannot change the decision made at τ (the tests check this to the bit).
 
-Evaluation, on the out-of-sample months (after the first rebalance):
+Evaluation, on the out-of-sample periods (after the first rebalance):
 
 * realised exposures: OLS of the unhedged and hedged returns (book + overlay, gross of
   costs) on the real-time factors of those months, HAC errors (Newey and West 1987,
@@ -33,11 +36,18 @@ Evaluation, on the out-of-sample months (after the first rebalance):
   factors and b_u, b_h the realised exposures; ``effectiveness_neutralised`` restricts b
   and S_f to the neutralised factors (the figure a hedge of those factors should move);
 * realised tracking error sd(h' r_H) × sqrt(periods_per_year) against the predicted one,
-  sqrt(mean over held months of h_τ' Σ_H h_τ) (annualised);
+  sqrt(mean over held periods of h_τ' Σ_H h_τ) (annualised);
 * ``effectiveness_by_factor``: 1 - b_h,f^2 / b_u,f^2, factor by factor;
   ``variance_reduction``: 1 - var(hedged) / var(unhedged) of the realised returns;
 * turnover sum |h_τ - h_τ-| (the first build from zero included) and costs paid
   sum_j c_j |h_τ,j - h_τ-,j|, in total and per year, as fractions of NAV.
+
+Targets a rebalance cannot reach (``status`` "unreachable") are counted in
+``n_unreachable`` and reported first in ``warnings``: the run then shows the closest
+reachable overlay (``closest=True``) or none, not the hedge that was asked for.
+
+Messages about settings name the configuration key as the user writes it
+(``[backtest] start``, ``[exposures] window``, ...; :data:`CONFIG_KEYS`).
 """
 
 from __future__ import annotations
@@ -58,9 +68,29 @@ from .jsonable import jsonable
 from .premia import fama_macbeth
 from .states import realtime_innovations
 
-__all__ = ["BacktestResult", "rebalance_schedule", "walk_forward"]
+__all__ = ["CONFIG_KEYS", "BacktestResult", "period_words", "rebalance_schedule", "walk_forward"]
 
 _BOOK = "__book__"
+
+#: The configuration key behind each keyword of :func:`walk_forward`, as messages name it.
+CONFIG_KEYS: dict[str, str] = {
+    "nav": "[portfolio] nav",
+    "lags": "[states] lags",
+    "min_window": "[backtest] min_months",
+    "window": "[backtest] window",
+    "beta_window": "[exposures] window",
+    "beta_min_obs": "[exposures] min_obs",
+    "rebalance": "[backtest] rebalance",
+    "start": "[backtest] start",
+    "premium_weight": "[hedge] premium_weight",
+    "covariance_method": "[hedge] covariance",
+}
+
+
+def period_words(periods_per_year: int) -> tuple[str, str]:
+    """(singular, plural) word for one period: month(s) at 12 a year, quarter(s) at 4."""
+    return {12: ("month", "months"), 4: ("quarter", "quarters")}.get(
+        int(periods_per_year), ("period", "periods"))
 
 
 
@@ -76,10 +106,16 @@ class BacktestResult:
     ``predicted_te_path`` (annualised), ``turnover_path`` and ``cost_path`` (fractions of
     NAV) by rebalance date; ``book_betas_path`` and ``hedged_betas_path`` the in-sample
     exposures at each decision; ``premia_path`` (monthly prices of risk) and
-    ``premium_given_up_path`` (annualised) when the objective prices exposures.  ``series`` (month × column) holds ``book``, ``overlay``,
+    ``premium_given_up_path`` (annualised) when the objective prices exposures.  ``series``
+    (period × column) holds ``book``, ``overlay``,
     ``cost``, ``hedged`` (book + overlay), ``hedged_net`` (less cost), ``decision_date`` and
     the out-of-sample factors as ``factor.<name>``.  ``realised_exposure`` and
     ``realised_exposure_se`` have rows ``unhedged`` and ``hedged``.
+
+    ``n_periods`` is the number of out-of-sample periods evaluated and ``period_label``
+    their word ("months" or "quarters", from ``periods_per_year``); ``n_months`` is the
+    same count, kept under its old name for compatibility.  ``n_unreachable`` counts the
+    rebalance dates whose targets could not be reached.
     """
 
     rebalance_dates: pd.PeriodIndex
@@ -111,6 +147,9 @@ class BacktestResult:
     nav: float
     n_months: int
     periods_per_year: int
+    n_periods: int
+    period_label: str
+    n_unreachable: int
     settings: dict[str, Any]
     warnings: tuple[str, ...] = field(default_factory=tuple)
 
@@ -167,6 +206,11 @@ class BacktestResult:
             "premium_given_up_by_date": None if self.premium_given_up_path is None
             else {str(d): v for d, v in self.premium_given_up_path.items()},
             "n_months": self.n_months,
+            "n_periods": self.n_periods,
+            "period_label": self.period_label,
+            "periods_per_year": self.periods_per_year,
+            "n_unreachable": self.n_unreachable,
+            "n_rebalances": len(self.rebalance_dates),
             "nav": self.nav,
             "settings": self.settings,
             "series": {"dates": [str(d) for d in series.index],
@@ -178,10 +222,11 @@ class BacktestResult:
 def rebalance_schedule(dates: pd.PeriodIndex, *, rebalance: str = "quarterly",
                        first: pd.Period | None = None) -> pd.PeriodIndex:
     """Rebalance dates among ``dates``: quarter ends (months 3, 6, 9, 12) or every month,
-    from ``first`` on, leaving at least one month to hold the last overlay."""
+    from ``first`` on, leaving at least one period to hold the last overlay.  With
+    quarterly dates every date is a quarter end, so both choices rebalance every quarter."""
     if rebalance not in ("quarterly", "monthly"):
-        raise InputError(f"unknown rebalance frequency '{rebalance}'.", column="rebalance",
-                         fix="use 'quarterly' or 'monthly'.")
+        raise InputError(f"{CONFIG_KEYS['rebalance']} = '{rebalance}' is not a rebalance "
+                         "frequency.", fix="use 'quarterly' or 'monthly'.")
     cand = dates[:-1]
     if rebalance == "quarterly" and dates.freqstr == "M":
         cand = cand[np.asarray(cand.month) % 3 == 0]
@@ -208,8 +253,8 @@ def _to_period(value: Any, freq: str, what: str) -> pd.Period:
     try:
         return pd.Period(value, freq=freq)
     except (TypeError, ValueError):
-        raise InputError(f"{what} '{value}' is not a date.", column=what,
-                         fix="write it as YYYY-MM.") from None
+        raise InputError(f"{CONFIG_KEYS.get(what, what)} = '{value}' is not a date.",
+                         fix="write it as YYYY-MM, e.g. '2005-03'.") from None
 
 
 def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFrame,
@@ -222,43 +267,83 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
                  asset_returns: pd.DataFrame | None = None, nw_lags: int | str = "auto",
                  premia_intercept: bool = True,
                  closest: bool = True, confidence: float | None = None,
-                 progress: Callable[[int, int], None] | None = None) -> BacktestResult:
+                 progress: Callable[[int, int], None] | None = None,
+                 market: str | None = None) -> BacktestResult:
     """Walk-forward re-estimation and hedge; see the module docstring for every step.
 
     ``state_data``: market excess return then state levels (orthogonalisation order),
-    PeriodIndex.  ``window``: rolling VAR window (None = expanding from ``min_window``);
-    ``beta_window``: rolling window of betas and covariance (None = expanding).  The first
-    rebalance (default) is the first quarter end at which the VAR has ``min_window`` months
-    and the real-time factors give the book and every instrument ``beta_min_obs`` months;
-    ``start`` moves it later.  ``asset_returns`` (test assets) are needed when
+    PeriodIndex; ``market`` (optional) names the market column, which is then moved first,
+    and must be a column of ``state_data`` (the VAR is re-estimated at every date, so a
+    factors file cannot stand in for the states).  All window lengths count periods
+    (months for monthly data, quarters for quarterly; ``periods_per_year`` 12 or 4).
+    ``min_window``: periods of the first VAR fit (``[backtest] min_months``); ``window``:
+    rolling VAR window (None = expanding from ``min_window``); ``beta_window``: rolling
+    window of betas and covariance (None = expanding).  The first rebalance (default) is
+    the first quarter end at which the VAR has ``min_window`` periods and the real-time
+    factors give the book and every instrument ``beta_min_obs`` periods; ``start`` moves
+    it later.  ``asset_returns`` (test assets) are needed when
     ``spec.premium_weight > 0`` (Fama-MacBeth prices of risk at each date).  With
     ``closest=True`` an unreachable date holds the closest reachable overlay (status
     ``"unreachable"`` in ``status``).  ``progress(i, n)`` is called after each decision.
     """
+    key = CONFIG_KEYS
+    if not (isinstance(periods_per_year, int | np.integer) and periods_per_year > 0):
+        raise InputError(f"periods_per_year must be a positive whole number, got "
+                         f"{periods_per_year!r}.", fix="use 12 for monthly data, 4 for quarterly.")
+    one, unit = period_words(periods_per_year)
     if not (isinstance(nav, int | float) and math.isfinite(nav) and nav > 0):
-        raise InputError(f"NAV must be a positive number, got {nav!r}.", column="nav",
-                         fix="set [portfolio] nav to the book's value in currency units.")
+        raise InputError(f"{key['nav']} = {nav!r}: the NAV must be a positive number.",
+                         fix="set it to the book's value in currency units.")
+    for name, value in (("min_window", min_window), ("beta_min_obs", beta_min_obs)):
+        if not isinstance(value, int | np.integer) or isinstance(value, bool) or value < 1:
+            raise InputError(f"{key[name]} = {value!r} must be a positive whole number of "
+                             f"{unit}.", fix="use e.g. 120 (min_months) or 36 (min_obs).")
+    if window is not None and (not isinstance(window, int | np.integer)
+                               or isinstance(window, bool) or window < 1):
+        raise InputError(f"{key['window']} = {window!r} must be a positive whole number of "
+                         f"{unit}.", fix="use e.g. 120, or 'expanding'.")
     if beta_window is not None and (not isinstance(beta_window, int | np.integer)
                                     or beta_window < beta_min_obs):
-        raise InputError(f"beta_window must be an integer of at least beta_min_obs "
-                         f"({beta_min_obs}) months, got {beta_window!r}.", column="beta_window",
-                         fix="use e.g. 60, or leave it empty for an expanding window.")
+        raise InputError(f"{key['beta_window']} = {beta_window!r} must be a whole number of "
+                         f"at least {key['beta_min_obs']} = {beta_min_obs} {unit}.",
+                         fix="use e.g. 60, or 'full' for an expanding window.")
     if not isinstance(instrument_returns, pd.DataFrame) or instrument_returns.shape[1] == 0:
         raise InputError("instrument returns must be a non-empty table.", file="instruments",
                          fix="one column of excess returns per hedge instrument.")
     if spec.premium_weight > 0 and asset_returns is None:
-        raise InputError("the hedge objective uses prices of risk but no test-asset returns "
-                         "were given to estimate them at each date.", column="premium_weight",
-                         fix="pass asset_returns or set premium_weight = 0.")
+        raise InputError(f"{key['premium_weight']} = {spec.premium_weight:g} prices the "
+                         "exposures, but no test-asset returns were given to estimate the "
+                         "prices of risk at each date.",
+                         fix=f"give [data] assets or set {key['premium_weight']} = 0.")
+    state_data = _market_first(state_data, market, spec)
     conf = float(spec.confidence if confidence is None else confidence)
     warnings: list[str] = []
 
+    if isinstance(state_data, pd.DataFrame):
+        have = int(state_data.notna().all(axis=1).sum())
+        first_fit = int(window if window is not None else min_window)
+        need = first_fit + (lags if isinstance(lags, int) else 1) + 1
+        if have < need:
+            which = key["window"] if window is not None else key["min_window"]
+            raise InputError(f"{which} = {first_fit}: the state data have only {have} complete "
+                             f"{unit}, fewer than the {need} a first VAR fit on {first_fit} "
+                             f"{unit} and one forecast need.",
+                             file=state_data.attrs.get("file", "states"),
+                             fix=f"lower {which} or use a longer sample.")
     rt = realtime_innovations(state_data, lags=lags, min_window=min_window, window=window)
     warnings += list(rt.warnings)
     fac_all = rt.factors()
     factors = tuple(str(c) for c in fac_all.columns)
     freq = fac_all.index.freqstr
     months = fac_all.index
+    expected_ppy = {"M": 12, "Q": 4}.get(freq[:1])
+    if expected_ppy is not None and expected_ppy != periods_per_year:
+        warnings.append(f"the data are {'monthly' if freq[:1] == 'M' else 'quarterly'} but "
+                        f"periods_per_year is {periods_per_year}: annualised figures use "
+                        f"{periods_per_year}.")
+    if freq[:1] == "Q" and rebalance == "monthly":
+        warnings.append(f"the data are quarterly: {key['rebalance']} = 'monthly' rebalances "
+                        "every quarter.")
     book = _as_series(book_returns)
     if not isinstance(instrument_returns.index, pd.PeriodIndex) or \
             instrument_returns.index.freqstr != freq:
@@ -281,21 +366,34 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
     ready = (valid >= beta_min_obs).all(axis=1)
     if not ready.any():
         raise InputError(
-            f"no date has {beta_min_obs} months of real-time factors for the book and every "
-            f"instrument after a first VAR fit on {min_window} months.",
-            fix="use a longer sample, or lower min_window / beta_min_obs.")
+            f"no date has {beta_min_obs} {unit} of real-time factors for the book and every "
+            f"instrument after a first VAR fit on {min_window} {unit} "
+            f"({key['min_window']} = {min_window}, {key['beta_min_obs']} = {beta_min_obs}).",
+            fix=f"use a longer sample, or lower {key['min_window']} or {key['beta_min_obs']}.")
     earliest = months[int(np.argmax(ready))]
     first = earliest
     if start is not None:
         first = _to_period(start, freq, "start")
+        if first > months[-1]:
+            raise InputError(f"{key['start']} = '{start}' is after the last date {months[-1]}.",
+                             fix=f"start between {earliest} and {months[-2]}, or leave "
+                                 f"{key['start']} out.")
         if first < earliest:
-            raise InputError(f"the first rebalance {first} comes before the first date with "
-                             f"enough history ({earliest}).", column="start",
-                             fix=f"start at {earliest} or later, or leave start empty.")
+            raise InputError(f"{key['start']} = '{start}' comes before the first date with "
+                             f"enough history, {earliest} (a first VAR fit on {min_window} "
+                             f"{unit}, then {beta_min_obs} {unit} of betas).",
+                             fix=f"start at {earliest} or later, or leave {key['start']} out.")
     dates = rebalance_schedule(months, rebalance=rebalance, first=first)
     if len(dates) == 0:
-        raise InputError(f"no rebalance date between {first} and the last month but one.",
-                         column="start", fix="start earlier or use a longer sample.")
+        what = (f"{key['start']} = '{start}'" if start is not None
+                else f"the first date with enough history, {earliest},")
+        raise InputError(f"there is no {rebalance} rebalance date between {what} and "
+                         f"{months[-2]}, the last date that leaves one {one} to hold the "
+                         "overlay.",
+                         fix=(f"start earlier ({key['start']}) or use a longer sample."
+                              if start is not None else
+                              f"use a longer sample, or lower {key['min_window']} or "
+                              f"{key['beta_min_obs']}."))
 
     problem = OverlayProblem.for_inputs(instruments, spec, sheet)
     n = len(dates)
@@ -313,16 +411,18 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
         if bad.any():
             d, j = np.argwhere(bad)[0]
             who = "the book" if j == 0 else instruments[j - 1]
-            raise InputError(f"too few months to estimate the betas of {who} at {dates[d]}.",
+            raise InputError(f"too few {unit} to estimate the betas of {who} at {dates[d]}.",
+                             file="portfolio_returns" if j == 0 else "instruments",
                              row=str(dates[d]), column=None if j == 0 else who,
-                             fix="start later, widen beta_window or supply more history.")
+                             fix=f"start later ({key['start']}), widen {key['beta_window']} "
+                                 "or supply more history.")
     if covariance_method == "sample":
         inst_cov = _window_cov(inst.to_numpy(dtype=float)[kn_rows], starts, ends)
         if (inst_cov[1] < 2).any():
             d = int(np.flatnonzero(inst_cov[1] < 2)[0])
-            raise InputError(f"fewer than 2 months where every instrument has a return at "
+            raise InputError(f"fewer than 2 {unit} where every instrument has a return at "
                              f"{dates[d]}.", row=str(dates[d]), file="instruments",
-                             fix="start later or fill the instrument returns.")
+                             fix=f"start later ({key['start']}) or fill the instrument returns.")
     if spec.objective == "total":
         panel_cov = _window_cov(panel.to_numpy(dtype=float)[kn_rows], starts, ends)
     lam_rows: list[pd.Series] = []
@@ -346,8 +446,10 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
                 who = est.betas.index[short.to_numpy()][0]
                 raise InputError(f"no betas for '{who if who != _BOOK else 'the book'}' at "
                                  f"{tau}.", row=str(tau),
+                                 file="portfolio_returns" if who == _BOOK else "instruments",
                                  column=None if who == _BOOK else str(who),
-                                 fix="start later or supply more history for that series.")
+                                 fix=f"start later ({key['start']}) or supply more history "
+                                     "for that series.")
             book_b, inst_b = est.betas.loc[_BOOK], est.betas.loc[instruments]
         else:
             book_b = pd.Series(coef[i, 0], index=fac_index)
@@ -378,7 +480,10 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
         pos[i] = h.to_numpy()
         te[i] = res.tracking_error
         turn[i] = float(np.abs(h - h_prev).sum())
-        cost[i] = res.cost
+        # the backtest holds the continuous weights h, so it pays the cost of that trade
+        # (the hedge stage's ``cost`` is the whole-contract trade's; common practice here)
+        unrounded = getattr(res, "cost_unrounded", None)
+        cost[i] = res.cost if unrounded is None else unrounded
         status.append(res.status)
         b_path[i] = res.exposure_before.reindex(factors).to_numpy()
         bh_path[i] = res.exposure_after.reindex(factors).to_numpy()
@@ -388,14 +493,17 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
         if progress is not None:
             progress(i + 1, n)
 
-    n_unreach = sum(s != "optimal" for s in status)
+    unreach = [s == "unreachable" for s in status]
+    n_unreach = int(sum(unreach))
     if n_unreach:
-        first_bad = dates[[s != "optimal" for s in status].index(True)]
-        warnings.append(f"targets were unreachable at {n_unreach} of {n} rebalance dates "
-                        f"(first {first_bad}); " + ("the closest reachable overlay was held."
-                                                    if closest else "no overlay was held."))
+        first_bad = dates[unreach.index(True)]
+        held_what = ("the closest reachable overlay was held" if closest
+                     else "no overlay was held at those dates")
+        # first in the list: the run does not show the hedge that was asked for
+        warnings.insert(0, f"{n_unreach} of {n} rebalances could not reach the targets; "
+                           f"{held_what} (see status by date). The first was {first_bad}.")
 
-    # ---- hold each decision from τ+1 to the next rebalance (vectorised over months)
+    # ---- hold each decision from τ+1 to the next rebalance (vectorised over periods)
     decisions = pd.DataFrame(pos, index=dates, columns=pd.Index(instruments, name="instrument"))
     held = decisions.reindex(months).ffill().shift(1)
     decision_date = pd.Series(dates, index=dates).reindex(months).ffill().shift(1)
@@ -405,8 +513,9 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
     r_h = inst.loc[oos]
     missing_leg = (held.to_numpy() != 0) & ~np.isfinite(r_h.to_numpy())
     if missing_leg.any():
-        warnings.append(f"{int(missing_leg.any(axis=1).sum())} month(s) with a held instrument's "
-                        "return missing: that leg counts as zero return.")
+        k = int(missing_leg.any(axis=1).sum())
+        warnings.append(f"{k} {one if k == 1 else unit} with a held instrument's return "
+                        "missing: that leg counts as zero return.")
     overlay = (held * r_h.fillna(0.0)).sum(axis=1)
     cost_m = pd.Series(cost, index=dates).reindex(months).shift(1).reindex(oos).fillna(0.0)
     book_oos = book.loc[oos]
@@ -420,12 +529,13 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
     series = pd.concat([series, f_oos.add_prefix("factor.")], axis=1)
     series.index.name = "date"
 
-    # ---- evaluation on the out-of-sample months
+    # ---- evaluation on the out-of-sample periods
     use = book_oos.notna() & f_oos.notna().all(axis=1)
-    n_months = int(use.sum())
-    if n_months < len(factors) + 2:
-        raise InputError(f"only {n_months} out-of-sample month(s) to evaluate the hedge.",
-                         column="start", fix="start earlier or use a longer sample.")
+    n_periods = int(use.sum())
+    if n_periods < len(factors) + 2:
+        raise InputError(f"only {n_periods} out-of-sample {one if n_periods == 1 else unit} "
+                         f"to evaluate the hedge; {len(factors) + 2} are needed.",
+                         fix=f"start earlier ({key['start']}) or use a longer sample.")
     sides = pd.DataFrame({"unhedged": book_oos[use], "hedged": hedged[use]})
     real = time_series_betas(sides, f_oos[use], hac_lags=hac_lags)
     b_real, se_real = real.betas.loc[["unhedged", "hedged"]], real.se_hac.loc[["unhedged",
@@ -451,6 +561,8 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
         "first_rebalance": str(dates[0]), "covariance_method": covariance_method,
         "objective": spec.objective, "closest": bool(closest),
         "first_month": str(oos[0]), "last_month": str(oos[-1]),
+        "first_period": str(oos[0]), "last_period": str(oos[-1]),
+        "periods_per_year": int(periods_per_year), "period_label": unit,
     }
     return BacktestResult(
         rebalance_dates=dates, decisions=decisions,
@@ -470,9 +582,45 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
         realised_tracking_error=realised_te, predicted_tracking_error=predicted_te,
         turnover=float(turn.sum()), turnover_annual=float(turn.sum() / years),
         costs_paid=float(cost.sum()), costs_paid_annual=float(cost.sum() / years),
-        nav=float(nav), n_months=n_months, periods_per_year=int(periods_per_year),
+        nav=float(nav), n_months=n_periods, periods_per_year=int(periods_per_year),
+        n_periods=n_periods, period_label=unit, n_unreachable=n_unreach,
         settings=settings, warnings=tuple(warnings),
     )
+
+
+def _market_first(state_data: pd.DataFrame, market: str | None, spec: HedgeSpec) -> pd.DataFrame:
+    """Put the market column first; refuse state data without the market or a hedged factor.
+
+    The walk-forward re-fits the VAR on the state data at every date, so the market and
+    every factor the hedge names must be columns of that data (a factors file is not
+    enough: its factors cannot be re-estimated date by date).
+    """
+    if not isinstance(state_data, pd.DataFrame):
+        return state_data
+    cols = [str(c) for c in state_data.columns]
+    where = state_data.attrs.get("file", "states")
+    why = ("The walk-forward re-estimates the VAR at every date, so it needs the states file "
+           "with the market excess return and the state variables; a factors file cannot "
+           "stand in for it.")
+    if market is not None:
+        if str(market) not in cols:
+            raise InputError(f"the market column '{market}' is not in the state data (columns: "
+                             f"{', '.join(cols)}). {why}", file=where,
+                             fix=f"add the market excess return '{market}' to the states "
+                                 "file, or run without the backtest.")
+        if cols[0] != str(market):
+            pos = cols.index(str(market))
+            order = [pos] + [i for i in range(len(cols)) if i != pos]
+            state_data = state_data.iloc[:, order]
+            cols = [cols[i] for i in order]
+    named = list(dict.fromkeys([*spec.neutralise, *spec.keep, *spec.targets]))
+    missing = [f for f in named if f not in cols]
+    if missing:
+        raise InputError(f"the hedge names the factor(s) {', '.join(missing)}, which are not "
+                         f"columns of the state data (columns: {', '.join(cols)}). {why}",
+                         file=where, fix="add those columns to the states file, or change "
+                                         "[hedge] neutralise / keep / targets.")
+    return state_data
 
 
 def _loc(index: pd.PeriodIndex, date: pd.Period) -> int:

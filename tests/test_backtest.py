@@ -287,3 +287,142 @@ def test_invariant_to_instrument_order_and_nav(demo):
                                base.decisions.to_numpy(), atol=1e-6)
     np.testing.assert_allclose(other.cost_path.to_numpy(), base.cost_path.to_numpy(), atol=1e-8)
     assert other.effectiveness == pytest.approx(base.effectiveness, abs=1e-6)
+
+
+def _short(demo, n=220):
+    return (demo["states"].iloc[:n], demo["book"].iloc[:n], demo["instruments"].iloc[:n],
+            demo["sheet"])
+
+
+def test_unreachable_rebalances_are_counted_and_warned(demo, demo_run):
+    """A gross cap of 5 % of NAV cannot neutralise term and def (the demo book's def beta
+    alone needs more): every decision is "unreachable"; the count, the first warning and
+    the JSON say so, and the held overlay respects the cap (closest) or is zero (not)."""
+    from dataclasses import replace
+
+    spec = replace(demo["spec"], max_gross=0.05)
+    res = walk_forward(*_short(demo), spec=spec, nav=NAV, min_window=60)
+    n = len(res.rebalance_dates)
+    assert n >= 10 and (res.status == "unreachable").all()
+    assert res.n_unreachable == n
+    first = str(res.rebalance_dates[0])
+    assert res.warnings[0] == (f"{n} of {n} rebalances could not reach the targets; the closest "
+                               f"reachable overlay was held (see status by date). The first "
+                               f"was {first}.")
+    assert (res.decisions.abs().sum(axis=1) <= 0.05 + 1e-6).all()
+    assert (res.decisions.abs().sum(axis=1) > 0.04).all()     # the cap binds: not a null hedge
+    out = res.to_dict()
+    assert out["n_unreachable"] == n and out["n_rebalances"] == n
+    off = walk_forward(*_short(demo), spec=spec, nav=NAV, min_window=60, closest=False)
+    assert off.n_unreachable == n
+    assert off.warnings[0].startswith(f"{n} of {n} rebalances could not reach the targets; "
+                                      "no overlay was held at those dates (see status by date).")
+    assert np.array_equal(off.decisions.to_numpy(), np.zeros(off.decisions.shape))
+    # the ordinary demo run reaches every target and says nothing of the kind
+    ok, _ = demo_run
+    assert ok.n_unreachable == 0 and ok.to_dict()["n_unreachable"] == 0
+    assert not any("could not reach" in w for w in ok.warnings)
+
+
+def _quarterly(frame, how):
+    """Monthly demo data to calendar quarters: returns summed (a common practice
+    approximation to compounding), state levels at the quarter end."""
+    q = frame.index.asfreq("Q")
+    g = frame.groupby(q)
+    out = g.sum(min_count=3) if how == "sum" else g.last()
+    out.index = pd.PeriodIndex(out.index, freq="Q", name="date")
+    return out
+
+
+def test_quarterly_data_speak_of_quarters(demo):
+    """Quarterly data (the demo summed to quarters): every period is a rebalance date, the
+    result says "quarters" (n_periods, period_label) while keeping n_months for old
+    readers, and annualises with sqrt(4) (realised tracking error = sd(overlay) * 2)."""
+    st = demo["states"]
+    states = pd.concat([_quarterly(st[["mkt"]], "sum"),
+                        _quarterly(st[["dy", "term", "def", "rf"]], "last")], axis=1)
+    states.iloc[0, 0] = np.nan                       # the first quarter has two months only
+    book = _quarterly(demo["book"].to_frame(), "sum")["larkspur_fund"]
+    inst = _quarterly(demo["instruments"].iloc[1:], "sum")
+    res = walk_forward(states, book, inst, demo["sheet"], spec=demo["spec"], nav=NAV,
+                       min_window=60, beta_min_obs=24, periods_per_year=4)
+    assert res.period_label == "quarters" and res.periods_per_year == 4
+    assert res.n_periods == res.n_months == len(res.series.dropna(subset=["book"]))
+    assert res.n_periods > 40
+    d = res.rebalance_dates
+    assert d.freqstr.startswith("Q") and (np.diff(d.asi8) == 1).all()
+    out = res.to_dict()
+    assert out["period_label"] == "quarters" and out["n_periods"] == res.n_periods
+    assert out["n_months"] == res.n_periods and out["periods_per_year"] == 4
+    assert res.realised_tracking_error == pytest.approx(res.series["overlay"].std(ddof=1) * 2,
+                                                        rel=1e-12)
+    assert res.settings["period_label"] == "quarters"
+    with pytest.raises(InputError, match=r"150 quarters of real-time factors .* 60 quarters"):
+        walk_forward(states, book, inst, demo["sheet"], spec=demo["spec"], nav=NAV,
+                     min_window=60, beta_min_obs=150, periods_per_year=4)
+    with pytest.raises(InputError, match=r"\[backtest\] min_months = 300: the state data "
+                                         r"have only 160 complete quarters"):
+        walk_forward(states, book, inst, demo["sheet"], spec=demo["spec"], nav=NAV,
+                     min_window=300, beta_min_obs=20, periods_per_year=4)
+    monthly = walk_forward(*_short(demo), spec=demo["spec"], nav=NAV, min_window=60)
+    assert monthly.period_label == "months" and monthly.to_dict()["n_periods"] == \
+        monthly.n_months
+
+
+def _message(exc: pytest.ExceptionInfo) -> str:
+    """The message before InputError's ' Fix: ...' suffix."""
+    return str(exc.value).split(" Fix: ")[0]
+
+
+def test_messages_name_the_configuration_key(demo):
+    """Bad settings are named as the user writes them ([section] key = value), as whole
+    sentences, and not as a data column."""
+    args = _short(demo)
+    kw = dict(spec=demo["spec"], nav=NAV, min_window=60)
+    with pytest.raises(InputError) as e:
+        walk_forward(*args, **kw, start="2031-01")
+    assert _message(e) == "[backtest] start = '2031-01' is after the last date 2004-03."
+    assert e.value.column is None and e.value.fix.endswith(".")
+    with pytest.raises(InputError) as e:
+        walk_forward(*args, **kw, start="1990-03")
+    assert _message(e).startswith("[backtest] start = '1990-03' comes before the first date "
+                                  "with enough history, 1994-01 (a first VAR fit on 60 "
+                                  "months, then 36 months of betas).")
+    with pytest.raises(InputError) as e:
+        walk_forward(*args, **kw, start="soon")
+    assert _message(e) == "[backtest] start = 'soon' is not a date."
+    with pytest.raises(InputError) as e:
+        walk_forward(*args, **kw, beta_window=10)
+    assert _message(e) == ("[exposures] window = 10 must be a whole number of at least "
+                           "[exposures] min_obs = 36 months.")
+    with pytest.raises(InputError) as e:
+        walk_forward(*args, **kw, rebalance="weekly")
+    assert _message(e) == "[backtest] rebalance = 'weekly' is not a rebalance frequency."
+    with pytest.raises(InputError) as e:
+        walk_forward(*args, spec=demo["spec"], nav=NAV, min_window=200)
+    assert "[backtest] min_months = 200" in _message(e)
+    assert "[backtest] min_months or [exposures] min_obs" in e.value.fix
+    with pytest.raises(InputError) as e:
+        walk_forward(*args, **kw | {"nav": -5.0})
+    assert _message(e) == "[portfolio] nav = -5.0: the NAV must be a positive number."
+    assert e.value.column is None
+
+
+def test_market_missing_from_states_needs_the_states_file(demo):
+    """State data without the market column (the market came from a factors file) is
+    refused with a message saying the walk-forward needs the states file because it
+    re-estimates the VAR at every date; a market column given out of order is moved first
+    and gives the same decisions as the ordered data."""
+    states, book, inst, sheet = _short(demo)
+    no_mkt = states.drop(columns="mkt")
+    for market in ("mkt", None):
+        with pytest.raises(InputError) as e:
+            walk_forward(no_mkt, book, inst, sheet, spec=demo["spec"], nav=NAV, min_window=60,
+                         market=market)
+        msg = str(e.value)
+        assert "re-estimates the VAR at every date" in msg and "states file" in msg
+        assert "factors file" in msg and "'mkt'" in msg or "mkt," in msg
+    base = walk_forward(states, book, inst, sheet, spec=demo["spec"], nav=NAV, min_window=60)
+    moved = walk_forward(states[["dy", "term", "def", "rf", "mkt"]], book, inst, sheet,
+                         spec=demo["spec"], nav=NAV, min_window=60, market="mkt")
+    np.testing.assert_array_equal(moved.decisions.to_numpy(), base.decisions.to_numpy())
