@@ -32,9 +32,11 @@ def plain_output(stream=None) -> bool:
 def make_console(stream=None, width: int | None = None) -> Console:
     stream = stream or sys.stdout
     plain = plain_output(stream)
+    if width is None and plain:
+        cols = os.environ.get("COLUMNS", "")
+        width = int(cols) if cols.isdigit() and int(cols) >= 40 else 100
     return Console(file=stream, no_color=plain, force_terminal=False if plain else None,
-                   width=width or (100 if plain else None), highlight=False, emoji=False,
-                   soft_wrap=False)
+                   width=width, highlight=False, emoji=False, soft_wrap=False)
 
 
 def fmt(x: Any, digits: int = 3, pct: bool = False, money: bool = False) -> str:
@@ -102,8 +104,12 @@ def mapping_rows(data: Mapping[str, Mapping[str, Any]], columns: Sequence[str], 
 def print_cautions(console: Console) -> None:
     console.print()
     console.print("Cautions" if console.no_color else "[bold yellow]Cautions[/]")
+    grid = Table.grid(padding=(0, 1), pad_edge=True)
+    grid.add_column(width=2, justify="right")
+    grid.add_column()
     for line in CAUTIONS:
-        console.print(f"  - {line}")
+        grid.add_row("-", line)
+    console.print(grid)
 
 
 # --------------------------------------------------------------------------- progress
