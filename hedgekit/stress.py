@@ -21,6 +21,11 @@ The historical replay lists the worst months and calendar quarters of the sample
 each factor's contribution ``b_f f_{f,t}`` and for the book's state-driven P&L ``b' f_t``,
 with the hedged model P&L and the realised return (:func:`historical_replay`).
 
+A user scenario named like a built-in one replaces it (a warning says so).  Every table
+(:meth:`StressResult.to_frame`, the replay frames) has its index named ``row`` so a CSV of
+it has a header for every column.  Messages about settings name the configuration key as
+the user writes it (``[[stress.scenarios]] number 2``, ``[stress] worst_k``, ...).
+
 Intervals come from the betas' standard errors only, assuming the estimates are
 independent across factors and between book and overlay (an approximation; the
 shocks ``g`` are taken as given):
@@ -88,6 +93,9 @@ BUILTIN_SCENARIOS: dict[str, dict[str, Any]] = {
 # otherwise its shock goes to the first variable (the market by construction).  Built-ins
 # naming a variable the VAR lacks are skipped with a warning.
 _MARKET_KEY = "mkt"
+_SCENARIOS = "[[stress.scenarios]]"
+#: Name of the index of every table of the result (a CSV column header).
+INDEX_NAME = "row"
 
 
 
@@ -195,9 +203,9 @@ def _check_inputs(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.Da
         raise InputError("sigma_u must cover the same variables as the transform.",
                          fix="pass StateResult.sigma_u unchanged.")
     if variables[0] != market:
-        raise InputError(f"the market variable '{market}' must come first in the "
-                         f"orthogonalisation order, found '{variables[0]}' first.",
-                         column=market, fix="put the market column first in [states] order.")
+        raise InputError(f"[states] market = '{market}' must come first in the "
+                         f"orthogonalisation order, but '{variables[0]}' is first.",
+                         fix="put the market column first in [states] order.")
     missing = [v for v in variables if v not in book_betas.index]
     if missing:
         raise InputError(f"book betas lack the factors {missing}.", column=missing[0],
@@ -263,9 +271,17 @@ def scenario_shocks(transform: pd.DataFrame, sigma_u: pd.DataFrame,
             pd.DataFrame(shocks, index=surprises.index, columns=variables))
 
 
+def _unit(index: pd.Index) -> str:
+    """The word for one period of ``index``, plural: quarters or months."""
+    q = isinstance(index, pd.PeriodIndex) and index.freqstr.startswith("Q")
+    return "quarters" if q else "months"
+
+
 def _recession_surprise(raw: pd.DataFrame, book: np.ndarray, m: np.ndarray,
                         quantile: float) -> tuple[pd.Series, dict[str, Any]]:
-    """Mean raw innovation over the months where the book's state P&L ``b'M u_t`` is worst."""
+    """Mean raw innovation over the periods where the book's state P&L ``b'M u_t`` is worst
+    (``n_months`` is kept as the count's old key; ``n_periods`` and ``period_label`` say
+    how many and which periods)."""
     clean = raw.dropna()
     if clean.empty:
         raise InputError("raw innovations are all missing; the sample recession cannot be sized.",
@@ -277,6 +293,8 @@ def _recession_surprise(raw: pd.DataFrame, book: np.ndarray, m: np.ndarray,
     info = {
         "quantile": quantile,
         "n_months": int(n),
+        "n_periods": int(n),
+        "period_label": _unit(clean.index),
         "dates": [str(d) for d in clean.index[np.sort(worst)]],
         "surprise": surprise.to_dict(),
         "threshold_pnl": float(pnl[worst].max()),
@@ -286,10 +304,59 @@ def _recession_surprise(raw: pd.DataFrame, book: np.ndarray, m: np.ndarray,
 
 def _parse_scenarios(scenarios: Sequence[Mapping[str, Any]] | None, variables: list[str],
                      include_builtin: bool, warnings: list[str]) -> list[tuple[str, str, str, dict]]:
-    """Expand scenarios into (name, reading, description, shocks) rows."""
+    """Expand scenarios into (name, reading, description, shocks) rows.
+
+    A user scenario named like a built-in one replaces it; two user scenarios may not share
+    a name.
+    """
+    user: list[tuple[str, str, str, dict]] = []
+    seen: dict[str, int] = {}
+    for k, sc in enumerate(scenarios or []):
+        where = f"{_SCENARIOS} number {k + 1}"
+        if not isinstance(sc, Mapping) or "shocks" not in sc:
+            raise InputError(f"{where} needs a name and a shocks table.",
+                             fix="write name = \"...\" and shocks = { term = 0.01 }.")
+        name = str(sc.get("name", f"scenario_{k + 1}"))
+        if name in seen:
+            raise InputError(f"{where} repeats the name '{name}' of number {seen[name]}.",
+                             fix="give each scenario its own name.")
+        seen[name] = k + 1
+        where = f"{where} ('{name}')"
+        shocks = sc["shocks"]
+        if not isinstance(shocks, Mapping) or not shocks:
+            raise InputError(f"{where} has no shocks.",
+                             fix="give at least one variable and its surprise, e.g. term = 0.01.")
+        clean = {}
+        for var, x in shocks.items():
+            if var not in variables:
+                raise InputError(f"{where} shocks '{var}', which is not a state variable "
+                                 f"({', '.join(variables)}).",
+                                 fix=f"did you mean {_nearest(str(var), variables)}?")
+            try:
+                val = float(x)
+            except (TypeError, ValueError):
+                raise InputError(f"{where}: shocks.{var} = {x!r} is not a number.",
+                                 fix="give decimals: +100 bp is 0.01, -20 % is -0.20.") from None
+            if not math.isfinite(val):
+                raise InputError(f"{where}: shocks.{var} = {x!r} is not finite.",
+                                 fix="give a finite decimal.")
+            clean[str(var)] = val
+        reading = str(sc.get("reading", "both"))
+        if reading in ("co-move", "co_move", "typical"):
+            reading = "comove"
+        if reading not in (*READINGS, "both"):
+            raise InputError(f"{where}: reading = '{reading}' is an unknown reading.",
+                             fix=f"use {_nearest(reading, [*READINGS, 'both'])}.")
+        desc = str(sc.get("description", ", ".join(f"{v} {x:+g}" for v, x in clean.items())))
+        for r in (READINGS if reading == "both" else (reading,)):
+            user.append((name, r, desc, clean))
     rows: list[tuple[str, str, str, dict]] = []
     if include_builtin:
         for name, spec in BUILTIN_SCENARIOS.items():
+            if name in seen:
+                warnings.append(f"scenario '{name}' of {_SCENARIOS} number {seen[name]} "
+                                "replaces the built-in scenario of the same name.")
+                continue
             if spec["shocks"] is None:
                 continue
             shocks = dict(spec["shocks"])
@@ -301,43 +368,7 @@ def _parse_scenarios(scenarios: Sequence[Mapping[str, Any]] | None, variables: l
                                 f"named {unknown[0]!r}.")
                 continue
             rows += [(name, r, spec["description"], shocks) for r in READINGS]
-    for k, sc in enumerate(scenarios or []):
-        where = f"scenario {k + 1}"
-        if not isinstance(sc, Mapping) or "shocks" not in sc:
-            raise InputError("a scenario needs a name and a 'shocks' table.", row=where,
-                             fix="write it as {name = \"...\", shocks = {term = 0.01}}.")
-        name = str(sc.get("name", f"scenario_{k + 1}"))
-        shocks = sc["shocks"]
-        if not isinstance(shocks, Mapping) or not shocks:
-            raise InputError(f"scenario '{name}' has no shocks.", row=where,
-                             fix="give at least one variable and its surprise, e.g. term = 0.01.")
-        clean = {}
-        for var, x in shocks.items():
-            if var not in variables:
-                raise InputError(f"scenario '{name}' shocks an unknown variable '{var}'.",
-                                 row=where, column=str(var),
-                                 fix=f"did you mean {_nearest(str(var), variables)}?")
-            try:
-                val = float(x)
-            except (TypeError, ValueError):
-                raise InputError(f"scenario '{name}': the surprise of '{var}' is not a number "
-                                 f"({x!r}).", row=where, column=str(var),
-                                 fix="give decimals: +100 bp is 0.01, -20 % is -0.20.") from None
-            if not math.isfinite(val):
-                raise InputError(f"scenario '{name}': the surprise of '{var}' is not finite.",
-                                 row=where, column=str(var), fix="give a finite decimal.")
-            clean[str(var)] = val
-        reading = str(sc.get("reading", "both"))
-        if reading in ("co-move", "co_move", "typical"):
-            reading = "comove"
-        if reading not in (*READINGS, "both"):
-            raise InputError(f"scenario '{name}' has an unknown reading '{reading}'.",
-                             row=where, column="reading",
-                             fix=f"use {_nearest(reading, [*READINGS, 'both'])}.")
-        desc = str(sc.get("description", ", ".join(f"{v} {x:+g}" for v, x in clean.items())))
-        for r in (READINGS if reading == "both" else (reading,)):
-            rows.append((name, r, desc, clean))
-    return rows
+    return rows + user
 
 
 def _worst_periods(pnl: pd.DataFrame, hedged: pd.DataFrame, values: pd.DataFrame,
@@ -360,7 +391,7 @@ def _worst_periods(pnl: pd.DataFrame, hedged: pd.DataFrame, values: pd.DataFrame
             "realised": (realised.reindex(idx).to_numpy() if realised is not None
                          else np.full(len(idx), np.nan)),
         }))
-    return pd.concat(out, ignore_index=True)
+    return pd.concat(out, ignore_index=True).rename_axis(INDEX_NAME)
 
 
 def historical_replay(factors: pd.DataFrame, book_betas: pd.Series, hedged_betas: pd.Series, *,
@@ -442,16 +473,16 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
     ``instrument_se``; see :func:`overlay_exposure`.
     """
     if not (isinstance(nav, int | float) and math.isfinite(nav) and nav > 0):
-        raise InputError(f"NAV must be a positive number, got {nav!r}.", column="nav",
-                         fix="set [portfolio] nav to the book's value in currency units.")
+        raise InputError(f"[portfolio] nav = {nav!r}: the NAV must be a positive number.",
+                         fix="set it to the book's value in currency units.")
     if not 0 < confidence < 1:
-        raise InputError(f"confidence must lie in (0, 1), got {confidence}.",
-                         column="confidence", fix="use for example 0.95.")
+        raise InputError(f"[hedge] confidence = {confidence!r} must lie between 0 and 1.",
+                         fix="use for example 0.95.")
     if not 0 < recession_quantile < 1:
-        raise InputError(f"recession_quantile must lie in (0, 1), got {recession_quantile}.",
-                         column="recession_quantile", fix="use for example 0.05.")
+        raise InputError(f"[stress] recession_quantile = {recession_quantile!r} must lie "
+                         "between 0 and 1.", fix="use for example 0.05.")
     if worst_k < 1:
-        raise InputError(f"worst_k must be at least 1, got {worst_k}.", column="worst_k",
+        raise InputError(f"[stress] worst_k = {worst_k!r} must be at least 1.",
                          fix="use for example 5.")
     if positions is not None:
         if overlay_betas is not None:
@@ -486,13 +517,17 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
 
     rows = _parse_scenarios(scenarios, variables, include_builtin, warnings)
     recession = None
-    if include_builtin and raw_innovations is not None:
+    replaced = any(r[0] == "sample_recession" for r in rows)
+    if include_builtin and replaced:
+        pass                          # the user's own sample_recession stands in for it
+    elif include_builtin and raw_innovations is not None:
         raw = raw_innovations.reindex(columns=variables)
         surprise, recession = _recession_surprise(raw, b, m, recession_quantile)
-        rows.append(("sample_recession", "isolated",
-                     BUILTIN_SCENARIOS["sample_recession"]["description"]
-                     + f" ({recession['n_months']} months, worst {recession_quantile:.0%})",
-                     surprise.to_dict()))
+        rows.append((
+            "sample_recession", "isolated",
+            BUILTIN_SCENARIOS["sample_recession"]["description"]
+            + f" ({recession['n_periods']} {recession['period_label']}, worst "
+              f"{recession_quantile:.0%})", surprise.to_dict()))
     elif include_builtin:
         warnings.append("no raw innovations given: the sample_recession scenario is left out.")
     if not rows:
@@ -512,7 +547,7 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
         "scenario": [r[0] for r in rows],
         "reading": readings,
         "description": [r[2] for r in rows],
-    })
+    }).rename_axis(INDEX_NAME)
     for side, p, s in (("unhedged", pnl_u, se_u), ("hedged", pnl_h, se_h)):
         table[side] = p
         table[f"{side}_se"] = s

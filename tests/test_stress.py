@@ -281,3 +281,85 @@ def test_interval_coverage_monte_carlo(demo_sample):
                     & (truth_pnl <= t["unhedged_hi"].to_numpy()))
     coverage = np.mean(hits, axis=0)
     assert np.all(coverage > 0.9) and np.all(coverage < 0.99), coverage
+
+
+def test_user_scenario_replaces_builtin_of_the_same_name(demo_sample):
+    """A user scenario named like a built-in replaces it: one pair of rows with that name,
+    the user's size (P&L = b' M s with the user's s), and a warning saying so; the same
+    holds for sample_recession; two user scenarios may not share a name."""
+    raw, _, _ = demo_sample
+    scen = [{"name": "curve_steepens_100bp", "shocks": {"term": 0.02}}]
+    res = run_stress(BOOK, M, SIGMA, nav=NAV, scenarios=scen)
+    rows = res.table[res.table.scenario == "curve_steepens_100bp"]
+    assert list(rows["reading"]) == ["isolated", "comove"]
+    s = np.array([0.02 if v == "term" else 0.0 for v in V])
+    iso = rows[rows.reading == "isolated"].iloc[0]
+    assert iso["unhedged"] == pytest.approx(BOOK.to_numpy() @ M.to_numpy() @ s, rel=1e-10)
+    assert any("replaces the built-in scenario" in w and "curve_steepens_100bp" in w
+               for w in res.warnings)
+    assert not res.table.duplicated(["scenario", "reading"]).any()
+    names = [r["name"] for r in res.to_dict()["scenarios"]]
+    assert names.count("curve_steepens_100bp") == 2
+    # the other built-ins are all still there
+    assert {"credit_spreads_widen_150bp", "equity_drawdown_20pct"} <= set(res.table.scenario)
+    rec = run_stress(BOOK, M, SIGMA, nav=NAV, raw_innovations=raw,
+                     scenarios=[{"name": "sample_recession", "shocks": {"mkt": -0.1},
+                                 "reading": "isolated"}])
+    r = rec.table[rec.table.scenario == "sample_recession"]
+    expected = -0.1 * float(BOOK.to_numpy() @ M["mkt"].to_numpy())     # b' M e_mkt s_mkt
+    assert len(r) == 1 and r.iloc[0]["unhedged"] == pytest.approx(expected, rel=1e-10)
+    assert rec.recession is None
+    assert any("sample_recession" in w and "replaces" in w for w in rec.warnings)
+    plain = run_stress(BOOK, M, SIGMA, nav=NAV, raw_innovations=raw)
+    assert plain.recession["period_label"] == "months"
+    assert not any("replaces" in w for w in plain.warnings)
+    with pytest.raises(InputError) as e:
+        run_stress(BOOK, M, SIGMA, nav=NAV, scenarios=[{"name": "a", "shocks": {"term": 0.01}},
+                                                      {"name": "a", "shocks": {"def": 0.01}}])
+    assert str(e.value).startswith("[[stress.scenarios]] number 2 repeats the name 'a' of "
+                                   "number 1. Fix: ")
+
+
+def test_tables_have_a_named_index_for_csv(demo_sample):
+    """to_frame() and the replay frames have a named index, so a CSV written with its index
+    has a header for every column (no blank first header)."""
+    import io
+
+    raw, factors, book = demo_sample
+    res = run_stress(BOOK, M, SIGMA, nav=NAV, raw_innovations=raw, factors=factors,
+                     book_returns=book, worst_k=3)
+    for frame in (res.to_frame(), res.replay_months, res.replay_quarters, res.shocks,
+                  res.contributions_hedged):
+        assert frame.index.name == "row"
+        header = frame.to_csv().splitlines()[0].split(",")
+        assert header[0] == "row" and all(header)
+        back = pd.read_csv(io.StringIO(frame.to_csv()), index_col="row")
+        assert list(back.columns) == [str(c) for c in frame.columns]
+
+
+def test_messages_name_the_configuration_key():
+    """Bad settings and scenarios are named as the user writes them in the configuration,
+    as whole sentences, never as a data column."""
+    cases = [
+        (dict(nav=-1.0), "[portfolio] nav = -1.0: the NAV must be a positive number."),
+        (dict(nav=NAV, worst_k=0), "[stress] worst_k = 0 must be at least 1."),
+        (dict(nav=NAV, recession_quantile=1.5),
+         "[stress] recession_quantile = 1.5 must lie between 0 and 1."),
+        (dict(nav=NAV, scenarios=[{"name": "x", "shocks": {"trem": 0.01}}]),
+         "[[stress.scenarios]] number 1 ('x') shocks 'trem', which is not a state variable "
+         "(mkt, dy, term, def, rf)."),
+        (dict(nav=NAV, scenarios=[{"name": "y", "shocks": {"term": 0.01}},
+                                  {"name": "x", "shocks": {"term": "a"}}]),
+         "[[stress.scenarios]] number 2 ('x'): shocks.term = 'a' is not a number."),
+        (dict(nav=NAV, scenarios=[{"name": "x", "shocks": {"term": 0.01}, "reading": "iso"}]),
+         "[[stress.scenarios]] number 1 ('x'): reading = 'iso' is an unknown reading."),
+        (dict(nav=NAV, market="dy"),
+         "[states] market = 'dy' must come first in the orthogonalisation order, but 'mkt' "
+         "is first."),
+    ]
+    for kw, expected in cases:
+        with pytest.raises(InputError) as e:
+            run_stress(BOOK, M, SIGMA, **kw)
+        assert str(e.value).split(" Fix: ")[0] == expected
+        assert e.value.column is None and e.value.row is None
+        assert e.value.fix.endswith((".", "?"))
