@@ -29,7 +29,7 @@ value dated after τ cannot change the decision made at τ (the tests check this
 Evaluation, on the out-of-sample periods (after the first rebalance):
 
 * realised exposures: OLS of the unhedged and hedged returns (book + overlay, gross of
-  costs) on the real-time factors of those months, HAC errors (Newey and West 1987,
+  costs) on the real-time factors of those periods, HAC errors (Newey and West 1987,
   Econometrica), normal intervals at ``confidence`` (the spec's by default);
 * hedge effectiveness on the state-driven P&L b' f_t:
   ``1 - b_h' S_f b_h / b_u' S_f b_u`` with S_f the sample covariance of the out-of-sample
@@ -105,7 +105,7 @@ class BacktestResult:
     ``decisions``: rebalance date × instrument (weights of NAV); ``status``,
     ``predicted_te_path`` (annualised), ``turnover_path`` and ``cost_path`` (fractions of
     NAV) by rebalance date; ``book_betas_path`` and ``hedged_betas_path`` the in-sample
-    exposures at each decision; ``premia_path`` (monthly prices of risk) and
+    exposures at each decision; ``premia_path`` (prices of risk per period) and
     ``premium_given_up_path`` (annualised) when the objective prices exposures.  ``series``
     (period × column) holds ``book``, ``overlay``,
     ``cost``, ``hedged`` (book + overlay), ``hedged_net`` (less cost), ``decision_date`` and
