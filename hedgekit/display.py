@@ -357,7 +357,8 @@ def show_backtest(con: Console, res, config) -> None:
     con.print(table("Walk-forward check (decisions use data up to each rebalance date only)", ["measure", "value"], [
         ["rebalances", str(len(d.rebalance_dates))],
         ["first / last decision", f"{d.rebalance_dates[0]} / {d.rebalance_dates[-1]}" if len(d.rebalance_dates) else "-"],
-        ["out-of-sample months", str(d.n_months)],
+        [f"out-of-sample {getattr(d, 'period_label', 'months')}", str(getattr(d, "n_periods", d.n_months))],
+        ["rebalances that could not reach the targets", str(getattr(d, "n_unreachable", 0))],
         ["hedge effectiveness (state-driven P&L)", fmt(d.effectiveness, 1, pct=True)],
         ["effectiveness on neutralised factors", fmt(d.effectiveness_neutralised, 1, pct=True)],
         ["realised tracking error (a year)", fmt(d.realised_tracking_error, 2, pct=True)],

@@ -269,7 +269,8 @@ def run_backtest_stage(config: Config, data: Dataset, exposures, *, progress=Non
                         nw_lags=config["premia"]["nw_lags"], premia_intercept=config["premia"]["intercept"],
                         beta_window=_window(config), rebalance=rebalance or b["rebalance"], start=b["start"],
                         periods_per_year=data.periods_per_year,
-                        covariance_method=config["hedge"]["covariance"], progress=progress)
+                        covariance_method=config["hedge"]["covariance"], progress=progress,
+                        market=market_name(config, data))
 
 
 # --------------------------------------------------------------------------- whole job

@@ -779,8 +779,13 @@ def _backtest_section(run: Mapping) -> Section | None:
     rebal = backtest.get("rebalance_dates") or []
     if rebal:
         facts.append(("Rebalances", f"{len(rebal)} ({rebal[0]} to {rebal[-1]})"))
-    if backtest.get("n_months") is not None:
-        facts.append(("Months out of sample", str(backtest.get("n_months"))))
+    n_out = backtest.get("n_periods", backtest.get("n_months"))
+    if n_out is not None:
+        label = str(backtest.get("period_label") or "months")
+        facts.append((f"{label.capitalize()} out of sample", str(n_out)))
+    if backtest.get("n_unreachable"):
+        facts.append(("Rebalances that could not reach the targets (closest overlay held)",
+                      str(backtest.get("n_unreachable"))))
     if facts:
         blocks.append(Table(("Measure", "Value"), tuple(facts), caption="Walk-forward summary",
                             numeric=(False, True)))
