@@ -155,6 +155,9 @@ class HedgeSpec:
     ``min_weight``/``max_weight``/``cost_bps`` of ``None`` mean "take them from the
     instrument sheet"; a mapping overrides the sheet (a missing or NaN entry is unbounded
     or costless).  ``tolerance`` is one number or a map by neutralised factor.
+    ``rounding_slack`` (beta units): the whole-contract overlay is reported as breaking a
+    neutralised factor's tolerance or a kept factor's band only when it lands more than this
+    beyond it (a materiality floor, common practice; with tolerance 0 any rounding misses).
     """
 
     neutralise: tuple[str, ...] = ()
@@ -170,6 +173,7 @@ class HedgeSpec:
     premium_weight: float = 0.0
     robust: bool = False
     confidence: float = 0.95
+    rounding_slack: float = 0.02
 
     def __post_init__(self) -> None:
         set_ = object.__setattr__
@@ -196,6 +200,9 @@ class HedgeSpec:
             raise InputError(f"[hedge] max_gross {self.max_gross} is negative or not a number.",
                              fix="give the gross cap as a fraction of NAV, e.g. max_gross = 1.5.")
         tols = self.tolerance.values() if isinstance(self.tolerance, Mapping) else [self.tolerance]
+        if not self.rounding_slack >= 0:
+            raise InputError(f"[hedge] rounding_slack {self.rounding_slack} is negative.",
+                             fix="use e.g. rounding_slack = 0.02 (beta units).")
         if any(not v >= 0 for v in tols):
             raise InputError("[hedge] tolerance must be zero or positive.",
                              fix="give a tolerance in beta units, e.g. tolerance = 0.05.")
@@ -500,6 +507,13 @@ class HedgeResult:
     ``tracking_error`` = sqrt(h' Sigma_H h) annualised; ``premium_given_up`` =
     -(B_H h)' lambda x periods_per_year, the expected excess return the overlay removes.
     ``robust_gross_ratio`` = gross notional of the robust overlay / the nominal one.
+
+    Two trades and two costs: ``trades``/``cost_unrounded`` are the optimiser's continuous
+    trade h - h0 and its cost sum_j c_j |h_j - h0_j| (the objective's cost term);
+    ``trades_rounded``/``cost``/``cost_currency`` (and the ticket's ``cost`` column) are the
+    whole-contract trade h~ - h0 actually placed and its cost.  ``rounding_breaches``: what
+    the whole-contract overlay breaks that h kept (tolerance, band, cap, bounds, or every
+    leg rounding to zero contracts); each is also in ``warnings`` and ``message``.
     """
 
     status: str
@@ -535,6 +549,11 @@ class HedgeResult:
     ticket: pd.DataFrame
     warnings: tuple[str, ...] = ()
     cautions: tuple[str, ...] = CAUTIONS
+    trades_rounded: pd.Series | None = None
+    cost_unrounded: float | None = None
+    cost_unrounded_currency: float | None = None
+    gross_rounded: float | None = None
+    rounding_breaches: tuple[str, ...] = ()
 
     def _interval(self, centre: pd.Series, se: pd.Series | None) -> dict[str, list] | None:
         if se is None:
@@ -566,6 +585,13 @@ class HedgeResult:
             "tracking_error_rounded": _plain(self.tracking_error_rounded),
             "cost": _plain(self.cost),
             "cost_currency": _plain(self.cost_currency),
+            "cost_unrounded": None if self.cost_unrounded is None
+            else _plain(self.cost_unrounded),
+            "cost_unrounded_currency": None if self.cost_unrounded_currency is None
+            else _plain(self.cost_unrounded_currency),
+            "trades_rounded": _series_dict(self.trades_rounded),
+            "gross_rounded": None if self.gross_rounded is None else _plain(self.gross_rounded),
+            "rounding_breaches": list(self.rounding_breaches),
             "premium_given_up": None if self.premium_given_up is None
             else _plain(self.premium_given_up),
             "premium_given_up_rounded": None if self.premium_given_up_rounded is None
@@ -996,7 +1022,7 @@ def design_overlay(book_betas: pd.Series, instrument_betas: pd.DataFrame,
 
     return _ticket(status=status, instruments=instruments, act=act, h_act=h_act, h0=h0_all,
                    unit=unit, nav=nav, B_all=B_all, b_p=b_p, factors=factors, sigma=sigma_all,
-                   cost_all=cost_all,
+                   cost_all=cost_all, lo_all=lo_all, hi_all=hi_all,
                    se_p=se_p, se_B=se_B_all, lam=lam, ppy=periods_per_year, spec=spec,
                    unreachable=tuple(unreachable), remaining=remaining,
                    binding=tuple(dict.fromkeys(binding)), message=message, solver=solver,
@@ -1029,13 +1055,17 @@ def _active_limits(h: np.ndarray, active: list[str], lo: np.ndarray, hi: np.ndar
 def _ticket(*, status: str, instruments: list[str], act: np.ndarray, h_act: np.ndarray,
             h0: np.ndarray, unit: np.ndarray, nav: float, B_all: np.ndarray, b_p: np.ndarray,
             factors: list[str], sigma: np.ndarray, cost_all: np.ndarray,
-            se_p: np.ndarray | None, se_B: np.ndarray | None, lam: np.ndarray | None,
+            lo_all: np.ndarray, hi_all: np.ndarray, se_p: np.ndarray | None, se_B: np.ndarray | None, lam: np.ndarray | None,
             ppy: int, spec: HedgeSpec, unreachable: tuple[str, ...], remaining: pd.Series,
             binding: tuple[str, ...], message: str, solver: str,
             objective_value: float | None, book_variance: float | None,
             c_pH: np.ndarray | None, robust_ratio: float | None,
             warnings: tuple[str, ...]) -> HedgeResult:
-    """Round to contracts and compute exposures, risk, premium and cost of the overlay."""
+    """Round to contracts and compute exposures, risk, premium and cost of the overlay.
+
+    Costs are paid on the whole-contract trade, sum_j c_j |h~_j - h0_j| with h~ the rounded
+    weights; the unrounded trade's cost (what the program minimised) is kept alongside.
+    """
     h = np.zeros(len(instruments))
     h[act] = h_act
     h[np.abs(h) < 1e-8] = 0.0               # solver dust (1e-8 of NAV), not a position
@@ -1043,10 +1073,23 @@ def _ticket(*, status: str, instruments: list[str], act: np.ndarray, h_act: np.n
     contracts = np.rint(notional / unit).astype(np.int64)
     h_round = contracts * unit / nav
     trades = h - h0
-    cost_frac = float(cost_all @ np.abs(trades))
+    trades_round = h_round - h0
+    cost_unrounded = float(cost_all @ np.abs(trades))
+    cost_frac = float(cost_all @ np.abs(trades_round))
 
     after = b_p + B_all.T @ h
     after_round = b_p + B_all.T @ h_round
+    breaches = _rounding_breaches(
+        status=status, instruments=instruments, h=h, h_round=h_round, contracts=contracts,
+        unit=unit, nav=nav, B_all=B_all, after_round=after_round, factors=factors,
+        lo_all=lo_all, hi_all=hi_all, spec=spec)
+    if breaches:
+        warnings = warnings + tuple(f"Rounding to whole contracts: {b}." for b in breaches)
+        if status == "optimal":
+            message = (message.rstrip(".") + " before rounding, but rounding to whole "
+                       "contracts breaks the overlay: " + "; ".join(breaches) + ".")
+        else:
+            message += " After rounding to whole contracts: " + "; ".join(breaches) + "."
     te = math.sqrt(max(float(h @ sigma @ h), 0.0))
     te_round = math.sqrt(max(float(h_round @ sigma @ h_round), 0.0))
     premium = None if lam is None else float(-(B_all.T @ h) @ lam * ppy)
@@ -1065,8 +1108,8 @@ def _ticket(*, status: str, instruments: list[str], act: np.ndarray, h_act: np.n
     ticket = pd.DataFrame({
         "weight": h, "notional": notional, "contracts": contracts,
         "contract_value": unit, "weight_rounded": h_round, "current": h0, "trade": trades,
-        "cost": np.abs(trades) * cost_all * nav,
-        "excluded": ~act,
+        "trade_rounded": trades_round, "cost": np.abs(trades_round) * cost_all * nav,
+        "cost_unrounded": np.abs(trades) * cost_all * nav, "excluded": ~act,
     }, index=idx)
     ticket["excluded"] = ticket["excluded"].astype(float)
     return HedgeResult(
@@ -1088,4 +1131,70 @@ def _ticket(*, status: str, instruments: list[str], act: np.ndarray, h_act: np.n
         objective_value=objective_value, objective=spec.objective,
         total_risk_before=risk_before, total_risk_after=risk_after,
         robust_gross_ratio=robust_ratio, ticket=ticket, warnings=warnings,
+        trades_rounded=pd.Series(trades_round, index=idx, name="trade_rounded"),
+        cost_unrounded=cost_unrounded, cost_unrounded_currency=cost_unrounded * nav,
+        gross_rounded=float(np.abs(h_round).sum()), rounding_breaches=breaches,
     )
+
+
+def _rounding_breaches(*, status: str, instruments: list[str], h: np.ndarray,
+                       h_round: np.ndarray, contracts: np.ndarray, unit: np.ndarray,
+                       nav: float, B_all: np.ndarray, after_round: np.ndarray,
+                       factors: list[str], lo_all: np.ndarray, hi_all: np.ndarray,
+                       spec: HedgeSpec) -> tuple[str, ...]:
+    """What the whole-contract overlay h~ breaks that the optimiser's h kept, in words.
+
+    Neutralised f: |b~_f - t_f| > tol_f + rounding_slack; kept g: b~_g outside
+    [lo_g - slack, hi_g + slack]; limits: |h~|_1 > cap, h~_j outside [lo_j, hi_j] (beyond
+    1e-9).  Factor checks apply to an "optimal" overlay only (an unreachable one already
+    names its factors).
+    """
+    if not np.any(h != 0):
+        return ()
+    out: list[str] = []
+    share = unit / nav
+
+    def size(j: int) -> str:
+        of_nav = f"{share[j]:.1%} of" if share[j] < 1 else f"{share[j]:,.0f} times"
+        return f"one {instruments[j]} contract is {of_nav} the NAV of {nav:,.0f}"
+
+    all_zero = bool(np.all(contracts == 0))
+    if all_zero:
+        j = int(np.argmin(np.where(h != 0, share, np.inf)))
+        out.append("every position rounds to zero contracts, so no trade would be placed: "
+                   f"the NAV is too small for these contract sizes ({size(j)})")
+    if status == "optimal":
+        fidx = {f: k for k, f in enumerate(factors)}
+        shift = B_all * (h_round - h)[:, None]              # H x K: each leg's rounding
+        slack = spec.rounding_slack
+        missed: list[int] = []
+        for f in spec.neutralise:
+            k = fidx[f]
+            target, tol = spec.targets.get(f, 0.0), spec.tolerance_for(f)
+            miss = abs(after_round[k] - target) - tol
+            if miss > slack:
+                missed.append(k)
+                out.append(f"'{f}' is {after_round[k]:.3f} after rounding, {miss:.3f} outside "
+                           f"its tolerance {tol:g} around the target {target:g}")
+        if missed and not all_zero:
+            j = int(np.argmax(np.abs(shift[:, missed]).max(axis=1)))
+            out[-1] += (" (the NAV is small relative to contract sizes: "
+                        f"{size(j)})")
+        for g, (band_lo, band_hi) in spec.keep.items():
+            value = after_round[fidx[g]]
+            miss = max(band_lo - value, value - band_hi)
+            if miss > slack:
+                out.append(f"kept '{g}' is {value:.3f} after rounding, {miss:.3f} outside its "
+                           f"band [{band_lo:g}, {band_hi:g}]")
+    gross = float(np.abs(h_round).sum())
+    if spec.max_gross is not None and gross > spec.max_gross + 1e-9 * max(1.0, spec.max_gross):
+        out.append(f"the rounded gross notional {gross:.2%} of NAV is above the cap "
+                   f"max_gross = {spec.max_gross:g} ({spec.max_gross:.2%})")
+    for j, name in enumerate(instruments):
+        if np.isfinite(hi_all[j]) and h_round[j] > hi_all[j] + 1e-9 * max(1.0, abs(hi_all[j])):
+            out.append(f"{name}'s rounded weight {h_round[j]:.2%} is above its max_weight "
+                       f"{hi_all[j]:g}")
+        if np.isfinite(lo_all[j]) and h_round[j] < lo_all[j] - 1e-9 * max(1.0, abs(lo_all[j])):
+            out.append(f"{name}'s rounded weight {h_round[j]:.2%} is below its min_weight "
+                       f"{lo_all[j]:g}")
+    return tuple(out)

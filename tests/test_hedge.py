@@ -77,10 +77,15 @@ def test_ticket_numbers_follow_from_the_positions():
     np.testing.assert_allclose(res.exposure_after_rounded, book + betas.T @ h_r, atol=1e-12)
     assert res.tracking_error == pytest.approx(math.sqrt(h @ cov @ h), rel=1e-12)
     assert res.premium_given_up == pytest.approx(-(betas.T @ h) @ lam * 12, rel=1e-12)
-    trade = h - current.reindex(h.index).fillna(0.0)
-    cost = (sheet.set_index("instrument")["cost_bps"] / 1e4 * trade.abs()).sum()
-    assert res.cost == pytest.approx(cost, rel=1e-12)
-    assert res.cost_currency == pytest.approx(cost * 2.5e8, rel=1e-12)
+    h0 = current.reindex(h.index).fillna(0.0)
+    bps = sheet.set_index("instrument")["cost_bps"] / 1e4
+    cost = (bps * (h - h0).abs()).sum()                 # the optimiser's continuous trade
+    assert res.cost_unrounded == pytest.approx(cost, rel=1e-12)
+    assert res.cost_unrounded_currency == pytest.approx(cost * 2.5e8, rel=1e-12)
+    cost_r = (bps * (h_r - h0).abs()).sum()             # the whole-contract trade placed
+    assert res.cost == pytest.approx(cost_r, rel=1e-12)
+    assert res.cost_currency == pytest.approx(cost_r * 2.5e8, rel=1e-12)
+    np.testing.assert_allclose(res.trades_rounded, h_r - h0, atol=1e-15)
     assert res.cautions == CAUTIONS and any("not investment advice" in c for c in res.cautions)
     ticket = res.to_frame()
     assert list(ticket.index) == list(betas.index)
@@ -108,7 +113,7 @@ def test_objective_value_is_variance_plus_cost_plus_premium_term():
     spec = HedgeSpec.from_sheet(sheet, premium_weight=0.5, **BASE)
     res = design_overlay(book, betas, cov, sheet, nav=1e8, spec=spec, premia=lam)
     h = res.positions
-    expect = h @ cov @ h + res.cost + 0.5 * res.premium_given_up
+    expect = h @ cov @ h + res.cost_unrounded + 0.5 * res.premium_given_up
     assert res.objective_value == pytest.approx(expect, rel=1e-7, abs=1e-10)
     plain = design_overlay(book, betas, cov, sheet, nav=1e8,
                            spec=HedgeSpec.from_sheet(sheet, **BASE), premia=lam)
@@ -125,7 +130,10 @@ def test_current_optimal_overlay_is_not_traded():
                          spec=HedgeSpec.from_sheet(sheet, **BASE), current=free.positions)
     assert res.status == "optimal"
     np.testing.assert_allclose(res.trades.to_numpy(), 0.0, atol=1e-6)
-    assert res.cost < 1e-8
+    assert res.cost_unrounded < 1e-8
+    # what is placed is the whole-contract position minus the current one
+    assert res.cost == pytest.approx(4e-4 * np.abs(res.positions_rounded - free.positions).sum(),
+                                     rel=1e-12)
 
 
 def test_excluded_instruments_get_no_position():
@@ -150,6 +158,99 @@ def test_weight_bounds_and_cap_respected_and_reported():
     assert res.objective_value >= free.objective_value - 1e-9
 
 
+# ------------------------------------------------------------------ whole contracts
+
+def test_costs_are_those_of_the_whole_contract_trade():
+    """The ticket's cost is |contracts x price x multiplier - h0 x NAV| x cost_bps (the trade
+    placed); a leg that rounds to zero contracts from a flat start costs nothing."""
+    betas, cov, book, sheet = make_case(1)
+    nav = 3e7
+    res = design_overlay(book, betas, cov, sheet, nav=nav, spec=HedgeSpec.from_sheet(sheet, **BASE))
+    s = sheet.set_index("instrument")
+    placed = (res.contracts * s["price"] * s["multiplier"]).abs()
+    np.testing.assert_allclose(res.ticket["cost"], placed * s["cost_bps"] / 1e4, rtol=1e-12)
+    np.testing.assert_allclose(res.ticket["cost_unrounded"],
+                               res.notional.abs() * s["cost_bps"] / 1e4, rtol=1e-12)
+    assert res.cost_currency == pytest.approx(res.ticket["cost"].sum(), rel=1e-12)
+    zero = res.contracts == 0
+    assert zero.any() and (res.ticket.loc[zero, "cost"] == 0).all()
+    assert (res.positions[zero] != 0).any()           # a real position that rounded away
+    out = res.to_dict()
+    assert out["cost_unrounded"] == pytest.approx(res.cost_unrounded)
+    assert out["trades_rounded"] == pytest.approx(res.trades_rounded.to_dict())
+
+
+def test_rounding_breaches_follow_the_rounded_exposures():
+    """A neutralised factor is reported when |b~_f - t_f| > tol_f + rounding_slack after
+    rounding, and only then; status stays the optimiser's "optimal"."""
+    betas, cov, book, sheet = make_case(2)
+    spec = HedgeSpec.from_sheet(sheet, **{**BASE, "tolerance": 0.01})
+    seen = set()
+    for nav in (3e5, 5e5, 1e6, 2e6, 5e6, 1e8, 1e9):
+        res = design_overlay(book, betas, cov, sheet, nav=nav, spec=spec)
+        assert res.status == "optimal"
+        for f in ("term", "def"):
+            miss = abs(res.exposure_after_rounded[f]) - 0.01 > spec.rounding_slack
+            named = [b for b in res.rounding_breaches if b.startswith(f"'{f}' is")]
+            assert bool(named) == miss, (nav, f, res.exposure_after_rounded[f])
+            seen.add(miss)
+        assert all(f"Rounding to whole contracts: {b}." in res.warnings
+                   for b in res.rounding_breaches)
+        if res.rounding_breaches:
+            assert "rounding to whole contracts breaks the overlay" in res.message
+            assert "small relative to contract sizes" in res.message
+        else:
+            assert res.message == "Targets reached at minimum tracking variance."
+        assert json.loads(json.dumps(res.to_dict()))["rounding_breaches"] == \
+            list(res.rounding_breaches)
+    assert seen == {True, False}                 # both sides exercised
+
+
+def test_rounding_breaches_are_found_at_a_small_nav_and_not_at_a_large_one():
+    """Contracts up to ~10 % of a NAV of 1m miss the 'def' target by more than the slack;
+    at a NAV of 1e10 rounding is negligible."""
+    small = solve(2, nav=1e6)
+    large = solve(2, nav=1e10)
+    assert any("outside its tolerance" in b for b in small.rounding_breaches)
+    assert small.status == "optimal" and large.rounding_breaches == ()
+
+
+def test_every_position_rounding_to_zero_is_said_plainly():
+    """NAV 1,000 against contracts of 5,000 and more: nothing is traded, and the message
+    says so instead of a bare "Targets reached"."""
+    res = solve(3, nav=1e3)
+    assert res.status == "optimal"
+    assert (res.contracts == 0).all() and res.positions.abs().sum() > 0.1
+    assert res.cost == 0.0 and res.cost_unrounded > 0
+    assert "every position rounds to zero contracts" in res.rounding_breaches[0]
+    assert "no trade would be placed" in res.message
+    assert "before rounding" in res.message
+    np.testing.assert_allclose(res.exposure_after_rounded, res.exposure_before)
+
+
+def test_rounded_gross_above_the_cap_and_bounds_are_reported():
+    """With the cap and weight bounds binding, a rounded overlay that lands above them is
+    reported (cap: sum |h~_j| > max_gross; bounds: h~_j outside [min, max])."""
+    betas, cov, book, sheet = make_case(6)
+    free = design_overlay(book, betas, cov, sheet, nav=1e8, spec=HedgeSpec.from_sheet(sheet, **BASE))
+    cap = free.gross * 0.95
+    bound = float(np.abs(free.positions).max() * 0.9)
+    sheet = sheet.assign(min_weight=-bound, max_weight=bound)
+    spec = HedgeSpec.from_sheet(sheet, **{**BASE, "max_gross": cap})
+    seen_cap = seen_bound = 0
+    for nav in np.geomspace(2e7, 2e9, 9):
+        res = design_overlay(book, betas, cov, sheet, nav=nav, spec=spec, closest=True)
+        over_cap = res.gross_rounded > cap + 1e-9
+        assert any("above the cap max_gross" in b for b in res.rounding_breaches) == over_cap
+        out = (res.positions_rounded.abs() > bound + 1e-9)
+        for name, flag in out.items():
+            assert any(b.startswith(f"{name}'s rounded weight") for b in res.rounding_breaches) \
+                == flag
+        seen_cap += over_cap
+        seen_bound += out.any()
+    assert seen_cap and seen_bound               # the check is exercised both ways
+
+
 # ------------------------------------------------------------------ property tests
 
 @settings(max_examples=25, deadline=None, derandomize=True)
@@ -162,7 +263,8 @@ def test_nav_scales_notionals_and_contracts_not_weights(seed, nav, factor):
     np.testing.assert_allclose(b.notional, a.notional * factor, rtol=1e-12)
     # rounding to whole contracts: b's count is within one-half plus factor/2 of factor x a's
     assert np.all(np.abs(b.contracts - factor * a.contracts) <= factor / 2 + 0.5 + 1e-9)
-    assert b.cost_currency == pytest.approx(a.cost_currency * factor, rel=1e-10)
+    assert b.cost_unrounded_currency == pytest.approx(a.cost_unrounded_currency * factor,
+                                                      rel=1e-10)
 
 
 @settings(max_examples=25, deadline=None, derandomize=True)
