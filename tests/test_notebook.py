@@ -3,10 +3,9 @@
 from __future__ import annotations
 
 import json
-import os
 import shutil
 
-from .helpers import DEMO, ROOT
+from .helpers import DEMO, ROOT, exec_in
 
 
 def test_walkthrough_cells_run(tmp_path):
@@ -14,12 +13,6 @@ def test_walkthrough_cells_run(tmp_path):
     assert nb["nbformat"] == 4
     code = "\n".join("".join(c["source"]) for c in nb["cells"] if c["cell_type"] == "code")
     shutil.copytree(DEMO, tmp_path / "demo_portfolios")
-    cwd = os.getcwd()
-    os.chdir(tmp_path)
-    try:
-        scope: dict = {}
-        exec(compile(code, "walkthrough.ipynb", "exec"), scope)  # noqa: S102 - our own notebook
-    finally:
-        os.chdir(cwd)
+    scope = exec_in(tmp_path, code, "walkthrough.ipynb")
     assert scope["hedge"].status == "optimal"
     assert (tmp_path / "walkthrough_output" / "report.html").exists()

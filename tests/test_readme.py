@@ -2,10 +2,9 @@
 
 from __future__ import annotations
 
-import os
 import re
 
-from .helpers import ROOT
+from .helpers import ROOT, exec_in
 
 
 def _blocks(text: str) -> list[tuple[str, str]]:
@@ -35,12 +34,6 @@ def test_python_walkthrough_runs(tmp_path):
     api = text.split("## Python API", 1)[1]
     code = next(b for lang, b in _blocks(api) if lang == "python")
     code = code.replace("run = pipeline.run_all(config, backtest=True)", "run = pipeline.run_all(config)")
-    cwd = os.getcwd()
-    os.chdir(ROOT)
-    try:
-        scope: dict = {}
-        exec(compile(code, "README.md", "exec"), scope)  # noqa: S102 - our own documentation
-    finally:
-        os.chdir(cwd)
+    scope = exec_in(ROOT, code, "README.md")
     assert scope["hedge"].status == "optimal"
     assert scope["run"].hedge.status == "optimal"

@@ -12,24 +12,20 @@ import numpy as np
 import pandas as pd
 import pytest
 from linearmodels.asset_pricing import LinearFactorModel
-from linearmodels.datasets import french
 from linearmodels.panel import FamaMacBeth
 
 from hedgekit.exposures import rolling_betas, time_series_betas
 from hedgekit.premia import fama_macbeth
 
-INDUSTRIES = ["NoDur", "Durbl", "Manuf", "Enrgy", "Chems", "BusEq", "Telcm", "Utils", "Shops",
-              "Hlth", "Money", "Other"]
-SIZE_VALUE = ["S1V1", "S1V3", "S1V5", "S3V1", "S3V3", "S3V5", "S5V1", "S5V3", "S5V5"]
-FACTORS = ["MktRF", "SMB", "HML"]
+from .helpers import FRENCH_FACTORS, FRENCH_INDUSTRIES, FRENCH_SIZE_VALUE, french_excess
+
+INDUSTRIES, SIZE_VALUE, FACTORS = FRENCH_INDUSTRIES, FRENCH_SIZE_VALUE, FRENCH_FACTORS
 
 
 @pytest.fixture(scope="module")
 def french_data() -> tuple[pd.DataFrame, pd.DataFrame]:
-    raw = french.load()
-    idx = pd.PeriodIndex(pd.to_datetime(raw["dates"]), freq="M", name="date")
-    data = raw.drop(columns="dates").set_index(idx)
-    return data[SIZE_VALUE + INDUSTRIES].sub(data["RF"], axis=0), data[FACTORS]
+    """linearmodels' bundled french data (see tests/helpers.french_excess)."""
+    return french_excess(SIZE_VALUE + INDUSTRIES)
 
 
 def _panel(assets: pd.DataFrame, betas: pd.DataFrame) -> pd.DataFrame:
