@@ -50,12 +50,9 @@ def simulate_demo_process(samples: int, months: int, seed: int):
     return f, r, names, lam
 
 
-def test_monte_carlo_shanken_coverage_on_demo_process():
-    """Monte Carlo, 200 seeded samples of 480 months of the demo process: Shanken 95 %
-    intervals (Shanken 1992, RFS) cover the true prices of risk (truth.json; intercept 0)
-    between 90 % and 99 % of the time for every factor; plain Fama-MacBeth shown beside."""
-    samples, months = 200, 480
-    f, r, names, lam = simulate_demo_process(samples, months, seed=20261202)
+def _coverage(f, r, names, lam):
+    """Share of samples whose 95 % Shanken and plain Fama-MacBeth intervals cover the truth."""
+    samples, months = f.shape[:2]
     idx = pd.period_range("1990-01", periods=months, freq="M", name="date")
     true = np.r_[0.0, lam]
     hit_sh = np.zeros(len(true))
@@ -67,7 +64,16 @@ def test_monte_carlo_shanken_coverage_on_demo_process():
         err = np.abs(res.lambda_.to_numpy() - true)
         hit_sh += err <= 1.959964 * res.se_shanken.to_numpy()
         hit_fm += err <= 1.959964 * res.se_fm.to_numpy()
-    cover_sh, cover_fm = hit_sh / samples, hit_fm / samples
+    return hit_sh / samples, hit_fm / samples, res
+
+
+def test_monte_carlo_shanken_coverage_on_demo_process():
+    """Monte Carlo, 200 seeded samples of 480 months of the demo process: Shanken 95 %
+    intervals (Shanken 1992, RFS) cover the true prices of risk (truth.json; intercept 0)
+    between 90 % and 99 % of the time for every factor; plain Fama-MacBeth shown beside."""
+    samples, months = 200, 480
+    f, r, names, lam = simulate_demo_process(samples, months, seed=20261202)
+    cover_sh, cover_fm, res = _coverage(f, r, names, lam)
     print("Shanken coverage", dict(zip(res.factors, cover_sh.round(3).tolist(), strict=True)))
     print("Fama-MacBeth coverage", dict(zip(res.factors, cover_fm.round(3).tolist(), strict=True)))
     assert ((cover_sh >= 0.90) & (cover_sh <= 0.99)).all(), cover_sh
@@ -87,18 +93,7 @@ def test_monte_carlo_shanken_matters_when_premia_are_large():
     ef = np.r_[mean[0], np.zeros(len(VARS) - 1)]
     rng = np.random.default_rng(5)
     r = b @ lam + (f - ef) @ b.T + rng.standard_normal((samples, months, len(names))) * sd * 2
-    idx = pd.period_range("1990-01", periods=months, freq="M", name="date")
-    true = np.r_[0.0, lam]
-    hit_sh = np.zeros(len(true))
-    hit_fm = np.zeros(len(true))
-    for s in range(samples):  # Monte Carlo replications, not a hot path
-        fac = pd.DataFrame(f[s], index=idx, columns=VARS)
-        ret = pd.DataFrame(r[s], index=idx, columns=names)
-        res = fama_macbeth(ret, time_series_betas(ret, fac, hac_lags=0).betas, factors=fac)
-        err = np.abs(res.lambda_.to_numpy() - true)
-        hit_sh += err <= 1.959964 * res.se_shanken.to_numpy()
-        hit_fm += err <= 1.959964 * res.se_fm.to_numpy()
-    cover_sh, cover_fm = hit_sh / samples, hit_fm / samples
+    cover_sh, cover_fm, res = _coverage(f, r, names, lam)
     print("large premia: Shanken", cover_sh.round(3).tolist(), "Fama-MacBeth", cover_fm.round(3).tolist())
     assert ((cover_sh >= 0.90) & (cover_sh <= 0.99)).all(), cover_sh
     assert cover_fm.mean() < cover_sh.mean() - 0.03
