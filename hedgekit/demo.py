@@ -21,6 +21,7 @@ seed gives byte-identical files.
 from __future__ import annotations
 
 import argparse
+import hashlib
 import json
 from pathlib import Path
 
@@ -28,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
-from .files import atomic_write_csv, atomic_write_text
+from .files import atomic_write_text
 
 SEED = 20261201
 START = "1985-12"          # first month of levels; returns start one month later
@@ -238,34 +239,82 @@ output = "hedgekit_output"
 """
 
 
-def _write_csv(frame: pd.DataFrame, path: Path, index: bool = True) -> None:
+MARKER = ".hedgekit-demo.json"   # what an earlier `hedgekit demo` wrote here, with each file's SHA-256
+
+
+def _csv_text(frame: pd.DataFrame, index: bool = True) -> str:
     out = frame.copy()
     if index:
         out.index = out.index.astype(str)
         out.index.name = "date"
-    atomic_write_csv(out, path, index=index, float_format="%.10g")
+    return out.to_csv(index=index, lineterminator="\n", float_format="%.10g")
+
+
+def scenario_files(seed: int = SEED) -> dict[str, str]:
+    """The scenario's files as text: CSVs, truth.json and the config (nothing is written)."""
+    sim = simulate(seed)
+    return {
+        "states.csv": _csv_text(sim["states"]),
+        "assets.csv": _csv_text(sim["assets"]),
+        "instruments.csv": _csv_text(sim["instruments"]),
+        "portfolio_returns.csv": _csv_text(sim["portfolio_returns"]),
+        "holdings.csv": sim["holdings"].rename_axis("asset").rename("weight").to_frame().to_csv(
+            lineterminator="\n", float_format="%.10g"),
+        "instrument_sheet.csv": _csv_text(sim["sheet"], index=False),
+        "truth.json": json.dumps(sim["truth"], indent=2) + "\n",
+        "larkspur.toml": CONFIG,
+    }
+
+
+def _sha(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def _check_folder(out: Path, files: dict[str, str]) -> None:
+    """Refuse a folder that holds anything the demo did not write (the user's own files are never overwritten).
+
+    A folder is safe when it is new or empty, or when it is an earlier demo folder (it has
+    :data:`MARKER`) and every file about to be written is either absent, already identical,
+    or unchanged since the demo wrote it.
+    """
+    if out.exists() and not out.is_dir():
+        raise InputError("the demo folder exists and is a file.", file=str(out), fix="pass --dir a folder name.")
+    if not out.exists() or not any(out.iterdir()):
+        return
+    marker = out / MARKER
+    if not marker.is_file():
+        raise InputError("the folder exists and is not an earlier demo folder; the demo writes states.csv, "
+                         "holdings.csv, larkspur.toml and more and would overwrite files of yours.",
+                         file=str(out), fix="pass --dir a new or empty folder (e.g. --dir hedgekit_demo).")
+    try:
+        written = json.loads(marker.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        written = {}
+    for name, text in files.items():
+        target = out / name
+        if not target.exists():
+            continue
+        current = _sha(target.read_bytes())
+        if current not in (_sha(text.encode("utf-8")), written.get(name)):
+            raise InputError("this file was changed since the demo wrote it; the demo does not overwrite it.",
+                             file=str(target), fix="move the file away or pass --dir a new folder.")
 
 
 def write_scenario(out: str | Path, seed: int = SEED) -> Path:
     """Write the scenario's CSVs, truth.json and config into ``out``; returns the config path.
 
-    Every file is written atomically, so an interrupted run leaves no half-written file.
+    Never overwrites a file the demo did not write (see :func:`_check_folder`); every file
+    is written atomically, so an interrupted run leaves no half-written file.
     """
     out = Path(out)
-    if out.exists() and not out.is_dir():
-        raise InputError("the demo folder exists and is a file.", file=str(out), fix="pass --dir a folder name.")
-    sim = simulate(seed)
-    _write_csv(sim["states"], out / "states.csv")
-    _write_csv(sim["assets"], out / "assets.csv")
-    _write_csv(sim["instruments"], out / "instruments.csv")
-    _write_csv(sim["portfolio_returns"], out / "portfolio_returns.csv")
-    atomic_write_csv(sim["holdings"].rename_axis("asset").rename("weight").to_frame(), out / "holdings.csv",
-                     float_format="%.10g")
-    _write_csv(sim["sheet"], out / "instrument_sheet.csv", index=False)
-    atomic_write_text(out / "truth.json", json.dumps(sim["truth"], indent=2) + "\n")
-    config = out / "larkspur.toml"
-    atomic_write_text(config, CONFIG)
-    return config
+    files = scenario_files(seed)
+    _check_folder(out, files)
+    out.mkdir(parents=True, exist_ok=True)
+    for name, text in files.items():
+        atomic_write_text(out / name, text)
+    atomic_write_text(out / MARKER, json.dumps({n: _sha(t.encode("utf-8")) for n, t in files.items()},
+                                               indent=1, sort_keys=True) + "\n")
+    return out / "larkspur.toml"
 
 
 def main(argv: list[str] | None = None) -> None:

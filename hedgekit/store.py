@@ -19,7 +19,8 @@ import hashlib
 import json
 import math
 import sqlite3
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -96,25 +97,52 @@ class RunStore:
 
     def __init__(self, path: Path | str) -> None:
         self.path = Path(path)
-        if self.path.exists() and self.path.is_dir():
-            raise InputError("the run store path is a folder.", file=str(self.path),
-                             fix="give a file name such as 'runs.sqlite'.")
-        self.path.parent.mkdir(parents=True, exist_ok=True)
-        conn = self._connect()
-        try:
-            conn.executescript(_SCHEMA)
-            conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
-        finally:
-            conn.close()
+        if self.path.exists() and not self.path.is_file():
+            what = "a folder" if self.path.is_dir() else "not a regular file"
+            raise InputError(f"the run store path is {what}.", file=str(self.path),
+                             fix="set [store] path to a file name such as 'hedgekit_runs.sqlite'.")
+        with self._guard("create the run store"):
+            self.path.parent.mkdir(parents=True, exist_ok=True)
+            conn = self._connect()
+            try:
+                conn.executescript(_SCHEMA)
+                conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
+            finally:
+                conn.close()
 
     def _connect(self) -> sqlite3.Connection:
-        try:
-            conn = sqlite3.connect(self.path, timeout=30.0)
-        except sqlite3.Error as exc:
-            raise InputError(f"cannot open the run store: {exc}.", file=str(self.path),
-                             fix="check the path and its permissions.") from exc
+        conn = sqlite3.connect(self.path, timeout=30.0)
         conn.execute("PRAGMA foreign_keys = ON")
         return conn
+
+    @contextmanager
+    def _guard(self, doing: str) -> Iterator[None]:
+        """Turn SQLite and file-system failures into an input error that names the store and the fix."""
+        try:
+            yield
+        except InputError:
+            raise
+        except sqlite3.DatabaseError as exc:
+            text = str(exc).lower()
+            if "not a database" in text or "malformed" in text or "no such table" in text \
+                    or "file is encrypted" in text:
+                raise InputError(f"cannot {doing}: the file is not a hedgekit run store or is damaged ({exc}).",
+                                 file=str(self.path),
+                                 fix="move the file aside (e.g. rename it to *.broken) and run again: a new "
+                                     "store is created; or run with --no-store.") from None
+            if "readonly" in text or "read-only" in text:
+                raise InputError(f"cannot {doing}: the run store is read-only ({exc}).", file=str(self.path),
+                                 fix="make the file and its folder writable, point [store] path elsewhere, "
+                                     "or run with --no-store.") from None
+            if "full" in text:
+                raise InputError(f"cannot {doing}: the disk is full ({exc}).", file=str(self.path),
+                                 fix="free space on that disk or point [store] path elsewhere.") from None
+            raise InputError(f"cannot {doing} ({exc}).", file=str(self.path),
+                             fix="check the path and its permissions, or run with --no-store.") from None
+        except OSError as exc:
+            raise InputError(f"cannot {doing}: {exc.strerror or exc}.", file=str(self.path),
+                             fix="check the path, its permissions and free space, or run with --no-store.") \
+                from None
 
     # -- writing --------------------------------------------------------------------
 
@@ -131,6 +159,10 @@ class RunStore:
         fp = fingerprint(config_text, hashes, version)
         results = json.dumps(jsonable(dict(run)), allow_nan=False)  # key order kept: factor order
         report = str(report_path) if report_path not in (None, "") else None
+        with self._guard("record the run"):
+            return self._insert(fp, meta, version, config_text, results, report, hashes)
+
+    def _insert(self, fp, meta, version, config_text, results, report, hashes) -> int:
         conn = self._connect()
         try:
             with conn:  # one transaction: commits on success, rolls back on any error
@@ -169,12 +201,13 @@ class RunStore:
             files_sql += f" WHERE run_id IN (SELECT run_id FROM runs WHERE {column} = ?)"
             args.append(value)
         sql += " ORDER BY COALESCE(sample_end, ''), run_at, run_id"
-        conn = self._connect()
-        try:
-            rows = conn.execute(sql, args).fetchall()
-            files = conn.execute(files_sql, args).fetchall()
-        finally:
-            conn.close()
+        with self._guard("read the run store"):
+            conn = self._connect()
+            try:
+                rows = conn.execute(sql, args).fetchall()
+                files = conn.execute(files_sql, args).fetchall()
+            finally:
+                conn.close()
         hashes: dict[int, dict[str, str]] = {}
         for run_id, key, sha in files:
             hashes.setdefault(int(run_id), {})[key] = sha

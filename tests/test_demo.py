@@ -40,3 +40,29 @@ def test_simulation_is_seeded():
     np.testing.assert_array_equal(a["assets"].to_numpy(), b["assets"].to_numpy())
     c = simulate(8)
     assert not np.allclose(np.nan_to_num(a["assets"].to_numpy()), np.nan_to_num(c["assets"].to_numpy()))
+
+
+def test_demo_never_overwrites_files_it_did_not_write(tmp_path):
+    """A folder of the user's own files is refused with exit 2; its files stay byte for byte."""
+    from hedgekit.cli import main
+    folder = tmp_path / "mine"
+    folder.mkdir()
+    (folder / "states.csv").write_text("date,mkt\n2020-01,0.01\n")
+    (folder / "larkspur.toml").write_text("# my own config\n")
+    before = {p.name: p.read_bytes() for p in folder.iterdir()}
+    assert main(["demo", "--dir", str(folder), "--json"]) == 2
+    assert {p.name: p.read_bytes() for p in folder.iterdir()} == before
+
+
+def test_demo_refuses_a_demo_file_the_user_changed(tmp_path):
+    """An earlier demo folder is reused, but a file edited since the demo wrote it is not overwritten."""
+    import pytest
+
+    from hedgekit.errors import InputError
+    write_scenario(tmp_path)
+    write_scenario(tmp_path)  # an earlier demo folder: reused
+    holdings = tmp_path / "holdings.csv"
+    holdings.write_text("asset,weight\nbanks,1.0\n")
+    with pytest.raises(InputError, match="changed since the demo wrote it"):
+        write_scenario(tmp_path)
+    assert holdings.read_text() == "asset,weight\nbanks,1.0\n"

@@ -137,7 +137,7 @@ def test_failed_record_leaves_the_store_intact(tmp_path: Path) -> None:
         conn.execute("CREATE TRIGGER boom BEFORE INSERT ON input_files WHEN NEW.file_key = 'states'"
                      " BEGIN SELECT RAISE(ABORT, 'simulated failure'); END")
     conn.close()
-    with pytest.raises(sqlite3.Error, match="simulated failure"):
+    with pytest.raises(InputError, match="simulated failure"):
         store.record(quarter_run("2025-06"), CONFIG + "#bad\n")
     assert [r.to_dict() for r in store.history()] == before
     with sqlite3.connect(tmp_path / "runs.sqlite") as conn:
@@ -173,3 +173,24 @@ def test_store_path_checks(tmp_path: Path) -> None:
     store = RunStore(tmp_path / "nested" / "runs.sqlite")
     assert store.history() == [] and isinstance(store.history_frame(), pd.DataFrame)
     assert store.history_frame().empty
+
+
+@pytest.mark.parametrize("kind", ["csv", "truncated", "devnull", "folder"])
+def test_store_problems_are_input_errors_naming_the_file(tmp_path, kind):
+    """A store path that is a CSV, a damaged store, /dev/null or a folder: exit-2 errors with the file and a fix."""
+    from hedgekit.errors import InputError
+    if kind == "csv":
+        path = tmp_path / "runs.csv"
+        path.write_text("a,b\n1,2\n")
+    elif kind == "truncated":
+        good = tmp_path / "good.sqlite"
+        RunStore(good)
+        path = tmp_path / "runs.sqlite"
+        path.write_bytes(good.read_bytes()[:60])
+    elif kind == "devnull":
+        path = Path("/dev/null")
+    else:
+        path = tmp_path
+    with pytest.raises(InputError) as err:
+        RunStore(path).history()
+    assert str(path) in str(err.value) and "Fix:" in str(err.value)
