@@ -19,7 +19,7 @@ from .jsonable import jsonable
 
 COMMANDS = {
     "demo": "the whole job on the bundled invented scenario (no CONFIG needed)",
-    "run": "the whole job: states, exposures, premia, hedge, stress, report",
+    "run": "the whole job: states, exposures, premia, hedge, stress, walk-forward, report",
     "states": "VAR of the state vector, raw and orthogonal innovations",
     "exposures": "full-sample and rolling betas of assets, book and instruments",
     "premia": "Fama-MacBeth prices of risk",
@@ -61,7 +61,8 @@ def build_parser() -> argparse.ArgumentParser:
             p.add_argument("--closest", action="store_true",
                            help="when targets are unreachable, return the closest reachable overlay")
         if name in ("demo", "run", "report"):
-            p.add_argument("--backtest", action="store_true", help="include the walk-forward check")
+            p.add_argument("--no-backtest", action="store_true", dest="no_backtest",
+                           help="skip the walk-forward check (it is part of the whole job by default)")
             p.add_argument("--no-store", action="store_true", help="do not record the run in the run store")
         if name == "backtest":
             p.add_argument("--rebalance", choices=["quarterly", "monthly"], help="override [backtest] rebalance")

@@ -178,7 +178,7 @@ def _previous_quarter(data) -> str:
 def _record_earlier_run(config, data, as_of: str) -> None:
     """Run the job as of an earlier quarter and store it, so history has a comparison."""
     from .store import RunStore
-    run = pipeline.run_all(config, data=data.as_of(as_of))
+    run = pipeline.run_all(config, data=data.as_of(as_of), backtest=False)
     RunStore(Path(config["store"]["path"])).record(run.to_dict(), config.text, None)
     _note(f"... stored the run as of {as_of} for the quarter-on-quarter comparison")
 
@@ -215,7 +215,7 @@ def _whole_job(args, config_path: Path, *, earlier: bool = False):
         for w in data.warnings:
             _note(f"note: {w}")
     with display.progress_bar("walk-forward") as tick:
-        run = pipeline.run_all(config, data=data, backtest=getattr(args, "backtest", False),
+        run = pipeline.run_all(config, data=data, backtest=not getattr(args, "no_backtest", False),
                                closest=getattr(args, "closest", False), progress=lambda s: _note(f"... {s}"),
                                backtest_progress=tick)
     payload = run.to_dict()

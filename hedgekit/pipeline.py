@@ -1,23 +1,29 @@
 """Wiring: map a validated :class:`Config` and :class:`Dataset` onto the stage calls.
 
-Data flow one way: states -> exposures -> premia -> hedge -> stress / backtest.
-Every function here is a thin adapter: the numbers come from the stage modules.
+Data flow one way: states -> exposures -> premia -> hedge -> stress / backtest. Every
+function here is a thin adapter: the numbers come from the stage modules, and the run
+record (:class:`hedgekit.record.RunResult`) holds them.
+
+The work splits in two: the *universe* (everything that does not depend on the book:
+states, factors, prices of risk on the test assets, the instrument covariance) and the
+*book* (its exposure, the hedge, the stress and the walk-forward). A single run is
+:func:`prepare_universe` then :func:`run_book`; a batch computes the universe once per
+group of books that share their inputs (:mod:`hedgekit.batch`).
 """
 
 from __future__ import annotations
 
-import datetime as _dt
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from . import __version__
 from .config import Config
 from .errors import InputError
 from .inputs import Dataset, check_common_months, load_dataset
+from .record import RunResult
 
 Progress = Callable[[str], None] | None
 
@@ -273,54 +279,19 @@ def run_backtest_stage(config: Config, data: Dataset, exposures, *, progress=Non
                         market=market_name(config, data))
 
 
-# --------------------------------------------------------------------------- whole job
+# --------------------------------------------------------------------------- universe and book
 
 @dataclass(frozen=True)
-class RunResult:
-    """Every stage's result for one run, and the merged JSON."""
+class Universe:
+    """Book-independent results, shared by every book that uses the same inputs and settings."""
 
-    config: Config
-    data: Dataset
     factor_set: FactorSet
-    exposures: Any
-    premia: Any
-    hedge: Any
-    stress: Any
-    backtest: Any = None
-    meta: dict = field(default_factory=dict)
-    warnings: tuple[str, ...] = ()
-
-    def to_dict(self) -> dict[str, Any]:
-        from .display import CAUTIONS
-        st = self.factor_set.states
-        return {
-            "meta": self.meta,
-            "states": st.to_dict() if st is not None else None,
-            "exposures": ({**self.exposures.to_dict(), "per_surprise": surprise_impacts(
-                self.exposures, self.factor_set, self.meta.get("nav", 1.0)).to_dict(orient="index")}
-                if self.exposures is not None else None),
-            "premia": self.premia.to_dict() if self.premia is not None else None,
-            "hedge": self.hedge.to_dict() if self.hedge is not None else None,
-            "stress": self.stress.to_dict() if self.stress is not None else None,
-            "backtest": self.backtest.to_dict() if self.backtest is not None else None,
-            "warnings": list(self.warnings),
-            "cautions": list(CAUTIONS),
-        }
 
 
-def _meta(config: Config, data: Dataset, fs: FactorSet) -> dict[str, Any]:
-    idx = fs.factors.index
-    return {
-        "fund": config["portfolio"]["name"], "nav": config["portfolio"]["nav"],
-        "currency": config["portfolio"]["currency"],
-        "sample_start": str(idx[0]), "sample_end": str(idx[-1]), "periods": int(len(idx)),
-        "frequency": data.frequency, "version": __version__, "config": _cfg_file(config),
-        "run_at": _dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat(),
-        "input_hashes": dict(data.hashes), "factors": list(map(str, fs.factors.columns)),
-        "factor_source": fs.source, "market": fs.market,
-        "neutralise": list(config["hedge"]["neutralise"]),
-        "keep": {k: list(v) for k, v in config["hedge"]["keep"].items()},
-    }
+def prepare_universe(config: Config, data: Dataset, *, progress: Progress = None) -> Universe:
+    """States and factors (the VAR, or the factors file)."""
+    (progress or (lambda _msg: None))("states")
+    return Universe(factor_set(config, data))
 
 
 STAGE_ORDER = ("states", "exposures", "premia", "hedge", "stress")
@@ -338,7 +309,8 @@ class Stages:
 
 
 def run_stages(config: Config, data: Dataset, until: str, *, closest: bool = False,
-               progress: Progress = None, stress_unreachable: bool = True) -> Stages:
+               progress: Progress = None, stress_unreachable: bool = True,
+               universe: Universe | None = None) -> Stages:
     """Run the stages in order up to and including ``until`` (one of :data:`STAGE_ORDER`).
 
     With ``stress_unreachable=False`` an unreachable hedge is left out of the stress
@@ -346,8 +318,8 @@ def run_stages(config: Config, data: Dataset, until: str, *, closest: bool = Fal
     """
     last = STAGE_ORDER.index(until)
     note = progress or (lambda _msg: None)
-    note("states")
-    fs = factor_set(config, data)
+    uni = universe if universe is not None else prepare_universe(config, data, progress=progress)
+    fs = uni.factor_set
     out: dict[str, Any] = {}
     if last >= 1:
         note("exposures")
@@ -367,17 +339,25 @@ def run_stages(config: Config, data: Dataset, until: str, *, closest: bool = Fal
     return Stages(fs, **out)
 
 
-def run_all(config: Config, *, data: Dataset | None = None, backtest: bool = False, closest: bool = False,
-            progress: Progress = None, backtest_progress=None) -> RunResult:
-    """The whole job: states, exposures, premia, hedge, stress and optionally the backtest."""
-    data = data if data is not None else load_dataset(config)
-    st = run_stages(config, data, "stress", closest=closest, progress=progress)
-    bt = None
+def run_book(config: Config, data: Dataset, universe: Universe, *, backtest: bool = True,
+             closest: bool = False, progress: Progress = None, backtest_progress=None) -> RunResult:
+    """The book's part of the job on a prepared universe: exposure, hedge, stress, walk-forward."""
+    st = run_stages(config, data, "stress", closest=closest, progress=progress, universe=universe)
+    bt, skipped = None, ()
     if backtest:
         (progress or (lambda _msg: None))("backtest")
-        bt = run_backtest_stage(config, data, st.exposures, progress=backtest_progress)
-    warnings = list(data.warnings)
-    for part in (st.factor_set.states, st.exposures, st.premia, st.hedge, st.stress, bt):
-        warnings += list(getattr(part, "warnings", ()) or ())
-    return RunResult(config, data, st.factor_set, st.exposures, st.premia, st.hedge, st.stress, bt,
-                     _meta(config, data, st.factor_set), tuple(dict.fromkeys(warnings)))
+        try:
+            bt = run_backtest_stage(config, data, st.exposures, progress=backtest_progress)
+        except InputError as exc:  # the whole job goes on; the reason is a visible warning
+            skipped = (f"walk-forward check skipped: {exc}",)
+    run = RunResult.build(config, data, st.factor_set, st.exposures, st.premia, st.hedge, st.stress, bt)
+    return replace(run, warnings=run.warnings + skipped) if skipped else run
+
+
+def run_all(config: Config, *, data: Dataset | None = None, backtest: bool = True, closest: bool = False,
+            progress: Progress = None, backtest_progress=None) -> RunResult:
+    """The whole job: states, exposures, premia, hedge, stress and (by default) the walk-forward."""
+    data = data if data is not None else load_dataset(config)
+    universe = prepare_universe(config, data, progress=progress)
+    return run_book(config, data, universe, backtest=backtest, closest=closest, progress=progress,
+                    backtest_progress=backtest_progress)

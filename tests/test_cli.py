@@ -35,7 +35,7 @@ def _run(args, cwd=None, env=None):
 @pytest.fixture(scope="module")
 def demo_run(tmp_path_factory):
     folder = tmp_path_factory.mktemp("demo")
-    proc = _run(["demo", "--dir", str(folder / "d"), "--json", "--backtest"])
+    proc = _run(["demo", "--dir", str(folder / "d"), "--json"])
     return folder / "d", proc
 
 

@@ -33,7 +33,7 @@ def test_python_walkthrough_runs(tmp_path):
     text = (ROOT / "README.md").read_text()
     api = text.split("## Python API", 1)[1]
     code = next(b for lang, b in _blocks(api) if lang == "python")
-    code = code.replace("run = pipeline.run_all(config, backtest=True)", "run = pipeline.run_all(config)")
+    code = code.replace("run = pipeline.run_all(config)", "run = pipeline.run_all(config, backtest=False)")
     scope = exec_in(ROOT, code, "README.md")
     assert scope["hedge"].status == "optimal"
     assert scope["run"].hedge.status == "optimal"

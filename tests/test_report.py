@@ -334,7 +334,7 @@ def test_real_demo_run_report_and_store(tmp_path: Path) -> None:
     from hedgekit.store import RunStore
 
     config = load_config(DEMO_CONFIG)
-    run = json.loads(json.dumps(run_all(config, backtest=True).to_dict(), allow_nan=False))
+    run = json.loads(json.dumps(run_all(config).to_dict(), allow_nan=False))
     paths = report.write_report(run, tmp_path / "out")
     text = paths["html"].read_text(encoding="utf-8")
     doc = report.build_document(run)
