@@ -29,6 +29,7 @@ COMMANDS = {
     "report": "the quarterly exposure report (HTML and Markdown)",
     "history": "earlier runs from the run store, side by side",
     "validate": "read and check every input file the config names, print a summary",
+    "batch": "the whole job for many books at once, sharing the work their inputs have in common",
 }
 
 EPILOG = ("Exit codes: 0 done, 1 other failure, 2 bad input or configuration, "
@@ -51,6 +52,9 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"hedgekit {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name, text in COMMANDS.items():
+        if name == "batch":
+            _batch_parser(sub, text)
+            continue
         p = sub.add_parser(name, parents=[common], help=text, description=text, epilog=EPILOG)
         if name == "demo":
             p.add_argument("--dir", default="hedgekit_demo",
@@ -67,6 +71,26 @@ def build_parser() -> argparse.ArgumentParser:
         if name == "backtest":
             p.add_argument("--rebalance", choices=["quarterly", "monthly"], help="override [backtest] rebalance")
     return parser
+
+
+BATCH_EPILOG = ("Exit codes: 0 every book ran; 2 a book had bad input or configuration; 3 a book's hedge "
+                "targets were not reachable (and none had bad input); 1 any other failure. The other books "
+                "run regardless.\nOutput is decision support, not investment advice.")
+
+
+def _batch_parser(sub, text: str) -> None:
+    p = sub.add_parser("batch", help=text, description=text, epilog=BATCH_EPILOG)
+    p.add_argument("configs", metavar="CONFIG", nargs="+",
+                   help="configuration files, folders of .toml files, or glob patterns")
+    p.add_argument("--workers", type=int, metavar="N", help="processes for the books' own work (default: cores)")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="run the books on a Dask distributed cluster, e.g. tcp://10.0.0.5:8786")
+    p.add_argument("--json", action="store_true", help="print one JSON object on stdout")
+    p.add_argument("--debug", action="store_true", help="show the traceback on errors")
+    p.add_argument("--closest", action="store_true",
+                   help="when targets are unreachable, return the closest reachable overlay")
+    p.add_argument("--no-backtest", action="store_true", dest="no_backtest", help="skip the walk-forward check")
+    p.add_argument("--no-store", action="store_true", help="do not record the runs in the run stores")
 
 
 def main(argv: list[str] | None = None) -> int:

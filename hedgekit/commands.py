@@ -201,11 +201,33 @@ def _run_tables(run) -> dict[str, pd.DataFrame | None]:
     return tables
 
 
+def finish_run(config, run, *, store: bool = True, name: str = "report") -> tuple[dict, int, dict]:
+    """Publish a computed run: compare with the stored history, write the report, record the run.
+
+    Returns ``(payload, exit code, report paths)``. Used by the whole job and by each book of
+    a batch, so both publish the same way.
+    """
+    payload = run.to_dict()
+    store_path = Path(config["store"]["path"])
+    storing = store and config["store"]["enabled"]
+    if storing and store_path.exists():  # the store is created only when a run is recorded
+        from .store import RunStore
+        payload["history"] = RunStore(store_path).compare_with_previous(payload, config["store"]["change_threshold"])
+    from .report import write_report
+    report_paths = write_report(payload, Path(config["report"]["output"]),
+                                formats=tuple(config["report"]["formats"]), name=name)
+    payload["report"] = {k: str(v) for k, v in report_paths.items()}
+    if storing:
+        from .store import RunStore
+        payload["run_id"] = RunStore(store_path).record(payload, config.text, str(report_paths.get("html", "")))
+    code = 0 if run.hedge is None or run.hedge.status == "optimal" else 3
+    return payload, code, report_paths
+
+
 def _whole_job(args, config_path: Path, *, earlier: bool = False):
     config = load_config(config_path)
     data = load_dataset(config)
     storing = config["store"]["enabled"] and not getattr(args, "no_store", False)
-    store_path = Path(config["store"]["path"])
     if earlier and storing:
         _record_earlier_run(config, data, _previous_quarter(data))
     as_of = getattr(args, "as_of", None)
@@ -218,19 +240,9 @@ def _whole_job(args, config_path: Path, *, earlier: bool = False):
         run = pipeline.run_all(config, data=data, backtest=not getattr(args, "no_backtest", False),
                                closest=getattr(args, "closest", False), progress=lambda s: _note(f"... {s}"),
                                backtest_progress=tick)
-    payload = run.to_dict()
-    if storing and store_path.exists():  # the store is created only when a run is recorded
-        from .store import RunStore
-        payload["history"] = RunStore(store_path).compare_with_previous(payload, config["store"]["change_threshold"])
-    from .report import write_report
     # A run re-created --as-of an earlier period gets its own report name: the current one stays.
     name = f"report_{run.meta['sample_end']}" if as_of else "report"
-    report_paths = write_report(payload, Path(config["report"]["output"]),
-                                formats=tuple(config["report"]["formats"]), name=name)
-    payload["report"] = {k: str(v) for k, v in report_paths.items()}
-    if storing:
-        from .store import RunStore
-        payload["run_id"] = RunStore(store_path).record(payload, config.text, str(report_paths.get("html", "")))
+    payload, code, report_paths = finish_run(config, run, store=storing, name=name)
     _write_tables(args, _run_tables(run))
     if not args.json:
         con = _console(args)
@@ -239,7 +251,8 @@ def _whole_job(args, config_path: Path, *, earlier: bool = False):
     for key in ("html", "md"):
         if key in report_paths:
             _note(f"report written: {report_paths[key]}")
-    code = 0 if run.hedge is None or run.hedge.status == "optimal" else _hedge_code(run.hedge)
+    if code:
+        _hedge_code(run.hedge)
     return payload, code
 
 
@@ -276,6 +289,28 @@ def cmd_history(args):
     table = frame.set_index("run_id").to_dict(orient="index") if len(frame) else {}
     return {"runs": runs, "side_by_side": {str(k): v for k, v in table.items()},
             "flags": flags.to_dict(orient="records")}, 0
+
+
+def cmd_batch(args):
+    from . import batch
+    if args.workers is not None and args.workers < 1:
+        raise InputError(f"--workers {args.workers} must be at least 1.", fix="pass a count of processes, e.g. 2.")
+    paths = batch.expand_configs(args.configs)
+    _note(f"batch: {len(paths)} configuration(s)")
+    with display.progress_bar("books") as tick:
+        res = batch.run_batch(paths, workers=args.workers, scheduler=args.scheduler,
+                              backtest=not args.no_backtest, closest=args.closest, store=not args.no_store,
+                              note=lambda m: _note(f"... {m}"), tick=tick)
+    _note(f"... {len(res.outcomes)} book(s) in {res.groups} group(s) of shared inputs, engine {res.engine}"
+          f" ({res.workers} worker(s))")
+    for o in res.outcomes:
+        if o.error is not None:
+            _note(f"book {o.name!r} failed (exit {o.exit_code}): {o.error}")
+    if not args.json:
+        con = _console(args)
+        display.show_batch(con, res.to_dict())
+        display.print_cautions(con)
+    return res.to_dict(), res.exit_code
 
 
 def cmd_validate(args):

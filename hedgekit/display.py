@@ -458,3 +458,34 @@ def show_run(con: Console, run, payload: Mapping) -> None:
         con.print("Report: " + ", ".join(v for k, v in payload["report"].items() if k in ("html", "md")))
     if "run_id" in payload:
         con.print(f"Run stored as #{payload['run_id']} in {cfg['store']['path']}.")
+
+
+# --------------------------------------------------------------------------- batch
+
+def show_batch(con: Console, result: Mapping) -> None:
+    """One row per book, from each book's run JSON: the neutralised exposures before and after the
+    whole-contract overlay, the ticket, tracking error, cost, the worst scenario and the status."""
+    plain = _plain(con)
+    rows = []
+    for name, run in (result.get("books") or {}).items():
+        hedge = run.get("hedge") or {}
+        meta = run.get("meta") or {}
+        after = hedge.get("exposure_after_rounded") or hedge.get("exposure_after") or {}
+        before = hedge.get("exposure_before") or {}
+        moved = ", ".join(f"{f} {fmt(before.get(f), 3)} -> {fmt(after.get(f), 3)}" for f in meta.get("neutralise", []))
+        contracts = hedge.get("contracts") or {}
+        legs = sum(1 for v in contracts.values() if v)
+        scen = (run.get("stress") or {}).get("scenarios") or []
+        worst = min(scen, key=lambda r: r["pnl"]["unhedged"]["return"]) if scen else None
+        worst_text = "-"
+        if worst:
+            worst_text = (f"{worst.get('label') or worst.get('description') or worst.get('name')}: "
+                          f"{fmt(worst['pnl']['unhedged']['return'], 2, pct=True)} -> "
+                          f"{fmt(worst['pnl']['hedged']['return'], 2, pct=True)}")
+        rows.append([name, hedge.get("status", "-"), moved or "-", f"{legs} legs",
+                     fmt(hedge.get("tracking_error_rounded", hedge.get("tracking_error")), 2, pct=True),
+                     fmt(hedge.get("cost_currency"), money=True), worst_text])
+    for name, message in (result.get("failed") or {}).items():
+        rows.append([name, "failed", str(message)[:120], "-", "-", "-", "-"])
+    con.print(table("Books", ["book", "status", "neutralised, before -> after (whole contracts)", "ticket",
+                              "TE/yr", "cost", "worst scenario: book -> hedged"], rows, plain=plain))
