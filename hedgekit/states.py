@@ -26,7 +26,7 @@ from scipy.linalg import solve_triangular
 
 from .errors import InputError
 from .jsonable import jsonable
-from .windows import window_moments
+from .windows import sample_dict, window_moments
 
 __all__ = [
     "LagSelection",
@@ -470,7 +470,8 @@ class StateResult:
             "lags": self.lags,
             "lag_selection": self.lag_selection,
             "nobs": self.nobs,
-            "sample": {"start": dates[0], "end": dates[-1]},
+            # start/end kept for existing readers; first/last/periods is the common contract.
+            "sample": {"start": dates[0], "end": dates[-1], **sample_dict(self.raw.index)},
             "intercept": self.intercept,
             "intercept_se": self.intercept_se,
             "coef": self.coef,
@@ -637,6 +638,8 @@ class RealtimeInnovations:
                             "fit_dates": [None if pd.isna(d) else str(d) for d in self.fit_dates],
                             "raw": _series_dict(self.raw),
                             "orthogonal": _series_dict(self.orthogonal)},
+            # the periods that carry a real-time innovation (forecast rows)
+            "sample": sample_dict(self.raw.index[self.raw.notna().all(axis=1).to_numpy()]),
             "warnings": list(self.warnings),
         })
 

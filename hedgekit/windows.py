@@ -37,8 +37,9 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 
-__all__ = ["WindowMoments", "window_bounds", "window_moments", "window_sums"]
+__all__ = ["WindowMoments", "sample_dict", "window_bounds", "window_moments", "window_sums"]
 
 
 def window_bounds(n_rows: int, window: int | None = None, *, first: int = 0
@@ -251,3 +252,12 @@ def _series_moments(x: np.ndarray, y: np.ndarray, m: np.ndarray, span: dict,
     syy = field_(q1 + q2) if cross else None
     return WindowMoments(count, field_(1, 1 + p), field_(q1), field_(q1 + 1, q1 + q2), syy,
                          packed)
+
+
+def sample_dict(dates: pd.PeriodIndex) -> dict:
+    """``{"first": "YYYY-MM", "last": "YYYY-MM", "periods": n}`` of the periods an estimate
+    used ("YYYYQn" for quarterly data); first and last ``None`` when there are none."""
+    dates = pd.PeriodIndex(dates)
+    if len(dates) == 0:
+        return {"first": None, "last": None, "periods": 0}
+    return {"first": str(dates.min()), "last": str(dates.max()), "periods": int(len(dates))}
