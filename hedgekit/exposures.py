@@ -20,17 +20,18 @@ each series on its own valid months (unbalanced panels are normal).
 
 from __future__ import annotations
 
-import math
 import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy.ndimage import uniform_filter1d
 
+from . import inference
 from .errors import InputError
 from .jsonable import jsonable
+from .linalg import newey_west_lags, resolve_lags, spd_solve
+from .windows import sample_dict, window_moments
 
 __all__ = [
     "BetaEstimates",
@@ -41,6 +42,8 @@ __all__ = [
     "newey_west_lags",
     "pnl_from_shocks",
     "rolling_betas",
+    "sample_dict",
+    "surprise_impacts",
     "time_series_betas",
 ]
 
@@ -54,26 +57,7 @@ _THREADS = min(2, os.cpu_count() or 1)
 # --------------------------------------------------------------------------- helpers
 
 
-def newey_west_lags(n_obs: int) -> int:
-    """Default Newey-West lag floor(4 (T/100)^(2/9)) (Newey and West 1994, REStud)."""
-    if n_obs <= 0:
-        return 0
-    return int(math.floor(4.0 * (n_obs / 100.0) ** (2.0 / 9.0)))
-
-
-def _resolve_lags(hac_lags: int | str, n_obs: int, name: str = "hac_lags") -> int:
-    if isinstance(hac_lags, str):
-        if hac_lags != "auto":
-            raise InputError(f"{name} must be 'auto' or a non-negative integer, not {hac_lags!r}.",
-                             column=name, fix="Use 'auto' or an integer such as 4.")
-        return newey_west_lags(n_obs)
-    if isinstance(hac_lags, bool) or not isinstance(hac_lags, int | np.integer) or hac_lags < 0:
-        raise InputError(f"{name} must be 'auto' or a non-negative integer, not {hac_lags!r}.",
-                         column=name, fix="Use 'auto' or an integer such as 4.")
-    return int(hac_lags)
-
-
-def _as_frame(data: pd.DataFrame | pd.Series, what: str) -> pd.DataFrame:
+def as_frame(data: pd.DataFrame | pd.Series, what: str) -> pd.DataFrame:
     """Check a time-indexed table and return it as a float DataFrame."""
     if isinstance(data, pd.Series):
         data = data.to_frame(name=data.name if data.name is not None else what)
@@ -104,8 +88,8 @@ def _as_frame(data: pd.DataFrame | pd.Series, what: str) -> pd.DataFrame:
 def _align(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame,
            what: str = "returns") -> tuple[pd.PeriodIndex, np.ndarray, np.ndarray, list[str], list[str]]:
     """Inner join on dates; factors must be complete on every date with a return."""
-    ret = _as_frame(returns, what)
-    fac = _as_frame(factors, "factors")
+    ret = as_frame(returns, what)
+    fac = as_frame(factors, "factors")
     if fac.shape[1] == 0:
         raise InputError("factors has no columns.", file="factors", fix="Give at least one factor.")
     if ret.index.freqstr != fac.index.freqstr:
@@ -135,70 +119,16 @@ def _align(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame,
             [str(c) for c in ret.columns], [str(c) for c in fac.columns])
 
 
-def _spd_solve(a: list[list[np.ndarray]], b: list[np.ndarray],
-               scale: list[np.ndarray] | None = None) -> list[np.ndarray]:
-    """Solve A x = b for many symmetric positive definite K x K systems at once.
-
-    ``a[i][j]`` (i >= j used) and ``b[i]`` are arrays of one common shape, one entry per
-    system; Cholesky A = L L' then two triangular solves, looping over K only.  Systems
-    that are not positive definite (a pivot below 1e-12 of ``scale``, by default the
-    diagonal entry) give NaN.  Works in place: ``a`` and ``b`` are
-    overwritten.
-    """
-    k = len(b)
-    low: list[list[np.ndarray | None]] = [[None] * k for _ in range(k)]
-    tmp = np.empty_like(b[0])
-
-    def sub_prod(target: np.ndarray, u: np.ndarray, v: np.ndarray) -> None:
-        np.multiply(u, v, out=tmp)
-        target -= tmp
-
-    # inv[j] = 1 / L_jj: multiplications instead of divisions in the hot loops.
-    inv: list[np.ndarray] = []
-    with np.errstate(invalid="ignore", divide="ignore"):
-        for j in range(k):
-            d = a[j][j]
-            ref = scale[j] if scale is not None else d.copy()
-            for m in range(j):
-                sub_prod(d, low[j][m], low[j][m])
-            # A pivot that cancels to round-off means a (near) singular design: blank.
-            d[~(d > 1e-12 * ref)] = np.nan
-            np.sqrt(d, out=d)
-            np.divide(1.0, d, out=d)
-            inv.append(d)
-            for i in range(j + 1, k):
-                s = a[i][j]
-                for m in range(j):
-                    sub_prod(s, low[i][m], low[j][m])
-                s *= d
-                low[i][j] = s
-        z: list[np.ndarray] = []
-        for i in range(k):
-            s = b[i]
-            for m in range(i):
-                sub_prod(s, low[i][m], z[m])
-            s *= inv[i]
-            z.append(s)
-        x: list[np.ndarray | None] = [None] * k
-        for i in reversed(range(k)):
-            s = z[i]
-            for m in range(i + 1, k):
-                sub_prod(s, low[m][i], x[m])
-            s *= inv[i]
-            x[i] = s
-    return x  # type: ignore[return-value]
-
-
 _clean = jsonable  # JSON-ready plain python (NaN -> None), shared with every stage
 
 
-def _series_dict(s: pd.Series | None) -> dict | None:
+def series_dict(s: pd.Series | None) -> dict | None:
     if s is None:
         return None
     return {str(k): _clean(v) for k, v in s.items()}
 
 
-def _frame_dict(df: pd.DataFrame | None) -> dict | None:
+def frame_dict(df: pd.DataFrame | None) -> dict | None:
     """{row: {column: x}}."""
     if df is None:
         return None
@@ -241,15 +171,15 @@ class BetaEstimates:
     def to_dict(self) -> dict:
         return {
             "factors": list(self.factors),
-            "betas": _frame_dict(self.betas),
-            "alpha": _series_dict(self.alpha),
-            "se_ols": _frame_dict(self.se_ols),
-            "se_hac": _frame_dict(self.se_hac),
-            "t_hac": _frame_dict(self.t_hac),
-            "alpha_se_hac": _series_dict(self.alpha_se_hac),
+            "betas": frame_dict(self.betas),
+            "alpha": series_dict(self.alpha),
+            "se_ols": frame_dict(self.se_ols),
+            "se_hac": frame_dict(self.se_hac),
+            "t_hac": frame_dict(self.t_hac),
+            "alpha_se_hac": series_dict(self.alpha_se_hac),
             "n_obs": {str(k): int(v) for k, v in self.n_obs.items()},
-            "r2": _series_dict(self.r2),
-            "resid_var": _series_dict(self.resid_var),
+            "r2": series_dict(self.r2),
+            "resid_var": series_dict(self.resid_var),
             "hac_lags": int(self.hac_lags),
             "warnings": list(self.warnings),
         }
@@ -298,7 +228,7 @@ def time_series_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, 
     y0 = np.where(mask, y, 0.0)
     x = np.column_stack([np.ones(t), f])
     n_obs = mask.sum(axis=0)
-    lags = _resolve_lags(hac_lags, int(n_obs.max()) if n else 0)
+    lags = resolve_lags(hac_lags, int(n_obs.max()) if n else 0)
 
     outer = np.einsum("tk,tl->tkl", x, x).reshape(t, p * p)
     xtx = (m.T @ outer).reshape(n, p, p)
@@ -416,70 +346,39 @@ class RollingBetas:
         }
 
 
-def _window_sum(a: np.ndarray, window: int) -> np.ndarray:
-    """Sum over the window ending at each row (rows t-window+1..t), along axis 0."""
-    c = np.cumsum(a, axis=0)
-    if window >= a.shape[0]:
-        return c
-    out = np.empty_like(c)
-    out[:window] = c[:window]
-    np.subtract(c[window:], c[:-window], out=out[window:])
-    return out
+def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int, *,
+                   out: np.ndarray, counts: np.ndarray) -> None:
+    """Rolling betas of one block of series on centred factors into ``out`` (n, T, K) and
+    their valid-month counts into ``counts`` (n, T).
 
-
-def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int,
-                   out: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Rolling betas of one block of series on centred factors: (T, n, K) and counts (T, n).
-
-    Window moments S_ff - s_f s_f'/n and S_fy - s_f s_y/n give the slope of the OLS on
-    [1, f] (the intercept partialled out, Frisch-Waugh-Lovell).  All moments of the block
-    sit in one (Q, n, T) array; one running-sum filter along time (scipy.ndimage) gives
-    every trailing window sum.
+    Window moments S_ff - s_f s_f'/n and S_fy - s_f s_y/n (each series over its own valid
+    months, :func:`hedgekit.windows.window_moments`) give the slope of the OLS on [1, f]
+    (the intercept partialled out, Frisch-Waugh-Lovell), solved by a batched Cholesky.
     """
-    yt = np.ascontiguousarray(y.T)
-    mask = np.isfinite(yt)
-    y0 = np.where(mask, yt, 0.0)
-    n, t = yt.shape
     k = fc.shape[1]
-    pairs = [(i, j) for i in range(k) for j in range(i + 1)]
-    # Factor-side terms: 1, f_j, f_i f_j (weighted by the mask); return-side: 1, f_j (by y).
-    g_mask = np.vstack([np.ones(t), fc.T] + [fc[:, i] * fc[:, j] for i, j in pairs])
-    g_ret = np.vstack([np.ones(t), fc.T])
-    q = g_mask.shape[0]
-    m = mask.astype(float)
-    mom = np.empty((q + g_ret.shape[0], n, t))
-    np.multiply(m[None], g_mask[:, None, :], out=mom[:q])
-    np.multiply(y0[None], g_ret[:, None, :], out=mom[q:])
-    w = min(window, t)
-    # Trailing window (months t-w+1..t): the running mean shifted by origin (w-1)//2, the
-    # largest shift scipy allows, with zeros before the first month.  Window means rather
-    # than sums: both sides of the normal equations scale by 1/w, the slopes do not.
-    uniform_filter1d(mom, size=w, axis=2, mode="constant", cval=0.0, origin=(w - 1) // 2,
-                     output=mom)
-    cnt = mom[0]
-    s_f = [mom[1 + j] for j in range(k)]
-    s_y = mom[q]
+    mom = window_moments(fc, y, mask=np.isfinite(y), window=window)
+    # (n, T) views, contiguous along time in the moments' own buffer, centred in place.
     with np.errstate(invalid="ignore", divide="ignore"):
-        inv_n = 1.0 / cnt
+        inv_n = 1.0 / mom.count.T
+        s_f = [mom.sx[..., j].T for j in range(k)]
         mean_f = [sf * inv_n for sf in s_f]
-        a: list[list[np.ndarray]] = [[None] * k for _ in range(k)]  # type: ignore[list-item]
         # Uncentred second moments: the yardstick for a pivot lost to cancellation.
-        raw_diag = [mom[1 + k + pairs.index((j, j))].copy() for j in range(k)]
-        tmp = np.empty_like(cnt)
-        for p_, (i, j) in enumerate(pairs):
-            s_ff = mom[1 + k + p_]
-            s_ff -= np.multiply(s_f[i], mean_f[j], out=tmp)
-            a[i][j] = s_ff
+        raw_diag = [mom.xx(j, j).T.copy() for j in range(k)]
+        tmp = np.empty_like(inv_n)
+        a: list[list[np.ndarray]] = [[None] * k for _ in range(k)]  # type: ignore[list-item]
+        for i in range(k):
+            for j in range(i + 1):
+                a[i][j] = mom.xx(i, j).T
+                a[i][j] -= np.multiply(s_f[i], mean_f[j], out=tmp)
         b = []
         for j in range(k):
-            s_fy = mom[q + 1 + j]
-            s_fy -= np.multiply(mean_f[j], s_y, out=tmp)
+            s_fy = mom.sxy[..., j].T
+            s_fy -= np.multiply(mean_f[j], mom.sy.T, out=tmp)
             b.append(s_fy)
-    counts = np.rint(cnt * w).astype(np.int64)
-    x = _spd_solve(a, b, raw_diag)
-    out = np.stack(x, axis=-1, out=out)  # (n, T, K): written straight into the caller's block
+    x = spd_solve(a, b, raw_diag)
+    np.stack(x, axis=-1, out=out)
+    counts[:] = mom.count.T
     out[counts < max(min_obs, k + 2)] = np.nan
-    return out.transpose(1, 0, 2), counts.T
 
 
 def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
@@ -511,8 +410,8 @@ def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
 
     def run(start: int) -> None:
         stop = min(start + _CHUNK, n)
-        _, c = _rolling_block(y[:, start:stop], fc, int(window), int(min_obs), out=store[start:stop])
-        counts_store[start:stop] = c.T
+        _rolling_block(y[:, start:stop], fc, int(window), int(min_obs),
+                       out=store[start:stop], counts=counts_store[start:stop])
 
     # Blocks of series bound the memory and stay in cache; numpy releases the GIL inside
     # each block, so two threads use two cores.  Results do not depend on the threading.
@@ -554,6 +453,39 @@ class ExposureResult:
     holdings: pd.Series
     book_source: str = "holdings"
     warnings: tuple[str, ...] = ()
+    confidence: float = inference.DEFAULT_CONFIDENCE
+    per_surprise: pd.DataFrame | None = None
+    sample_dates: pd.PeriodIndex | None = field(default=None, repr=False)
+
+    @property
+    def portfolio_t(self) -> pd.Series:
+        """HAC t-statistic of the book's exposure (NaN where the se is degenerate)."""
+        return inference.t_stat(self.book, self.book_se.reindex(self.book.index)).rename("t")
+
+    @property
+    def portfolio_p(self) -> pd.Series:
+        """Two-sided normal p-value of :attr:`portfolio_t`."""
+        return inference.p_value(self.portfolio_t).rename("p")
+
+    @property
+    def portfolio_marks(self) -> pd.Series:
+        """Significance marks of the book's exposure ("" where the se is degenerate)."""
+        return inference.marks(self.portfolio_p).rename("marks")
+
+    def conf_int(self, level: float | None = None) -> pd.DataFrame:
+        """Interval of the book's exposure at ``level`` (default: the stored confidence):
+        a factor x [low, high] frame, beta +/- z se with the HAC se."""
+        lo, hi = inference.interval(self.book, self.book_se.reindex(self.book.index),
+                                    self.confidence if level is None else level)
+        out = pd.DataFrame({"low": lo, "high": hi})
+        out.index.name = "factor"
+        return out
+
+    @property
+    def sample(self) -> dict:
+        """The months the asset regressions used: {first, last, periods}."""
+        dates = self.sample_dates if self.sample_dates is not None else self.assets.residuals.index
+        return sample_dict(dates)
 
     def to_dict(self) -> dict:
         rolling = None
@@ -564,25 +496,34 @@ class ExposureResult:
         direct = self.book_direct
         return {
             "factors": list(self.factors),
-            "portfolio": _series_dict(self.book),
-            "portfolio_se": _series_dict(self.book_se),
-            "portfolio_hac_se": _series_dict(self.book_se),
+            "portfolio": series_dict(self.book),
+            "portfolio_se": series_dict(self.book_se),
+            "portfolio_hac_se": series_dict(self.book_se),
             "portfolio_source": self.book_source,
-            "assets": _frame_dict(self.assets.betas),
-            "instruments": _frame_dict(self.instruments.betas) if self.instruments is not None else {},
+            "assets": frame_dict(self.assets.betas),
+            "instruments": frame_dict(self.instruments.betas) if self.instruments is not None else {},
             "rolling": rolling,
-            "portfolio_direct": (_series_dict(direct.betas.iloc[0]) if direct is not None else None),
-            "portfolio_direct_se": (_series_dict(direct.se_hac.iloc[0]) if direct is not None else None),
-            "gap": _series_dict(self.book_gap),
-            "holdings": _series_dict(self.holdings),
-            "factor_sd": _series_dict(self.factor_sd),
-            "assets_se_hac": _frame_dict(self.assets.se_hac),
-            "assets_alpha": _series_dict(self.assets.alpha),
+            "portfolio_direct": (series_dict(direct.betas.iloc[0]) if direct is not None else None),
+            "portfolio_direct_se": (series_dict(direct.se_hac.iloc[0]) if direct is not None else None),
+            "gap": series_dict(self.book_gap),
+            "holdings": series_dict(self.holdings),
+            "factor_sd": series_dict(self.factor_sd),
+            "assets_se_hac": frame_dict(self.assets.se_hac),
+            "assets_alpha": series_dict(self.assets.alpha),
             "assets_n_obs": {str(k): int(v) for k, v in self.assets.n_obs.items()},
-            "assets_r2": _series_dict(self.assets.r2),
-            "instruments_se_hac": (_frame_dict(self.instruments.se_hac)
+            "assets_r2": series_dict(self.assets.r2),
+            "instruments_se_hac": (frame_dict(self.instruments.se_hac)
                                    if self.instruments is not None else {}),
             "hac_lags": int(self.assets.hac_lags),
+            "portfolio_t": series_dict(self.portfolio_t),
+            "portfolio_p": series_dict(self.portfolio_p),
+            "portfolio_marks": {str(k): v for k, v in self.portfolio_marks.items()},
+            "portfolio_interval": inference.interval_pairs(self.book, self.book_se, self.confidence),
+            "confidence": float(self.confidence),
+            "per_surprise": (None if self.per_surprise is None else
+                             {str(v): {str(c): jsonable(x) for c, x in row.items()}
+                              for v, row in self.per_surprise.iterrows()}),
+            "sample": self.sample,
             "warnings": list(self.warnings),
         }
 
@@ -636,13 +577,21 @@ def estimate_exposures(factors: pd.DataFrame, assets: pd.DataFrame, *,
                        holdings: pd.Series | pd.DataFrame | dict | None = None,
                        portfolio_returns: pd.DataFrame | pd.Series | None = None,
                        window: int | None = 60, min_obs: int = 36,
-                       hac_lags: int | str = "auto") -> ExposureResult:
+                       hac_lags: int | str = "auto",
+                       confidence: float = inference.DEFAULT_CONFIDENCE,
+                       transform: pd.DataFrame | None = None, sigma_u: pd.DataFrame | None = None,
+                       nav: float | None = None, surprise_size: float = 0.01) -> ExposureResult:
     """Exposures of the test assets, the instruments and the book on the factors.
 
     Book exposure b_p = sum_i w_i b_i from holdings (weights of NAV; they need not sum to
     one, the rest is cash or leverage) and, when the portfolio's own returns are given,
     the direct regression with the gap between the two.  ``window=None`` skips rolling.
+    ``confidence`` sets the level of the intervals the result reports.  With the state
+    VAR's ``transform`` (M) and ``sigma_u`` and the ``nav``, ``per_surprise`` holds the
+    book's return and P&L for a surprise of ``surprise_size`` in each state variable
+    (:func:`surprise_impacts`).
     """
+    inference.check_level(confidence)
     if holdings is None and portfolio_returns is None:
         raise InputError("the book needs holdings or the portfolio's own returns.",
                          file="configuration", column="data",
@@ -672,7 +621,7 @@ def estimate_exposures(factors: pd.DataFrame, assets: pd.DataFrame, *,
                              file="assets", column=str(blank[0]),
                              fix="Supply a longer return history or drop the holding.")
         book_hold = pd.Series(weights.to_numpy() @ held.to_numpy(), index=held.columns, name="beta")
-        ret = _as_frame(assets, "assets")[list(weights.index)]
+        ret = as_frame(assets, "assets")[list(weights.index)]
         complete = ret.notna().all(axis=1)
         weighted = (ret[complete] @ weights).rename("book").to_frame()
         if len(weighted) < len(fnames) + 2:
@@ -686,7 +635,7 @@ def estimate_exposures(factors: pd.DataFrame, assets: pd.DataFrame, *,
 
     direct = None
     if portfolio_returns is not None:
-        pr = _as_frame(portfolio_returns, "portfolio_returns")
+        pr = as_frame(portfolio_returns, "portfolio_returns")
         if pr.shape[1] != 1:
             raise InputError(f"portfolio_returns must have one return column, found {pr.shape[1]}.",
                              file="portfolio_returns", fix="Keep date and one return column.")
@@ -714,12 +663,18 @@ def estimate_exposures(factors: pd.DataFrame, assets: pd.DataFrame, *,
         rolling_book.index.name = "date"
 
     dates = asset_est.residuals.index
-    fac = _as_frame(factors, "factors").loc[dates]
+    fac = as_frame(factors, "factors").loc[dates]
     factor_sd = fac.std(ddof=1).rename("factor_sd")
+    per_surprise = None
+    if transform is not None and sigma_u is not None:
+        per_surprise = surprise_impacts(book, transform, sigma_u, 1.0 if nav is None else nav,
+                                        size=surprise_size)
     return ExposureResult(
         factors=fnames, assets=asset_est, instruments=inst_est, book=book, book_se=book_se,
         book_direct=direct, book_gap=gap, rolling_book=rolling_book, rolling_assets=rolling_assets,
-        factor_sd=factor_sd, holdings=weights, book_source=source, warnings=tuple(notes))
+        factor_sd=factor_sd, holdings=weights, book_source=source, warnings=tuple(notes),
+        confidence=float(confidence), per_surprise=per_surprise,
+        sample_dates=asset_est.residuals.index[asset_est.residuals.notna().any(axis=1).to_numpy()])
 
 
 # --------------------------------------------------------------------------- readings
@@ -740,6 +695,33 @@ def exposure_impacts(book_betas: pd.Series, factor_sd: pd.Series, nav: float) ->
     out = pd.DataFrame({"beta": b, "factor_sd": sd, "return_1sd": b * sd,
                         "pnl_1sd": b * sd * float(nav)})
     out.index.name = "factor"
+    return out
+
+
+def surprise_impacts(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataFrame,
+                     nav: float, size: float = 0.01) -> pd.DataFrame:
+    """The book's return and P&L for a surprise of ``size`` in each state variable.
+
+    ``size`` is in natural units (0.01: +100 bp in a spread or rate, +1 point of dividend
+    yield, +1 % market return).  Isolated reading: the surprise s = size e_j alone, shocks
+    M s, return b' M e_j size.  Co-moving reading: the other variables at their conditional
+    mean given s_j, s = Sigma_u e_j size / Sigma_u,jj (Anderson 2003, thm. 2.5.1), return
+    b' M Sigma_u e_j size / Sigma_u,jj.  All variables at once (b' M and b' M Sigma_u).
+    Book exposures on factors that are not state variables (or the reverse) count as zero.
+    Returns variable x [surprise, isolated_return, isolated_pnl, comove_return, comove_pnl].
+    """
+    names = [str(v) for v in transform.index]
+    m = transform.loc[names, names].to_numpy(dtype=float)
+    cov = pd.DataFrame(sigma_u).loc[names, names].to_numpy(dtype=float)
+    b = pd.Series(book_betas, dtype=float)
+    b.index = b.index.map(str)
+    bm = b.reindex(names).fillna(0.0).to_numpy() @ m
+    iso = bm * size
+    with np.errstate(invalid="ignore", divide="ignore"):
+        com = (bm @ cov) / np.diag(cov) * size
+    out = pd.DataFrame({"surprise": float(size), "isolated_return": iso,
+                        "isolated_pnl": iso * float(nav), "comove_return": com,
+                        "comove_pnl": com * float(nav)}, index=pd.Index(names, name="variable"))
     return out
 
 

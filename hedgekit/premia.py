@@ -30,21 +30,17 @@ deficient design are skipped and counted.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy.special import chdtrc, fdtrc
 
+from . import inference
 from .errors import InputError
-from .exposures import (
-    RollingBetas,
-    _as_frame,
-    _clean,
-    _frame_dict,
-    _resolve_lags,
-    _series_dict,
-)
+from .exposures import RollingBetas, as_frame, frame_dict, sample_dict, series_dict
+from .jsonable import jsonable
+from .linalg import bartlett_long_run, resolve_lags
 
 __all__ = ["PremiaResult", "book_premium", "fama_macbeth"]
 
@@ -81,31 +77,111 @@ class PremiaResult:
     n_assets: int = 0
     intercept: bool = True
     warnings: tuple[str, ...] = ()
+    periods_per_year: int = 12
+    confidence: float = inference.DEFAULT_CONFIDENCE
+    book_premia: pd.DataFrame | None = field(default=None, repr=False)
+
+    @property
+    def headline_se(self) -> str:
+        """Which standard error the headline uses: "shanken" where it is available for every
+        price of risk (full-sample betas with factors), else "nw" (Newey-West)."""
+        if self.cov_shanken is not None and np.isfinite(self.se_shanken.to_numpy()).all():
+            return "shanken"
+        return "nw"
+
+    @property
+    def se(self) -> pd.Series:
+        """The headline standard error of each price of risk (per period)."""
+        return (self.se_shanken if self.headline_se == "shanken" else self.se_nw).rename("se")
+
+    @property
+    def t(self) -> pd.Series:
+        """Headline t-statistic (NaN where the se is degenerate)."""
+        return inference.t_stat(self.lambda_, self.se).rename("t")
+
+    @property
+    def p(self) -> pd.Series:
+        """Two-sided normal p-value of the headline t."""
+        return inference.p_value(self.t).rename("p")
+
+    @property
+    def marks(self) -> pd.Series:
+        return inference.marks(self.p).rename("marks")
+
+    @property
+    def lambda_annual(self) -> pd.Series:
+        return (self.lambda_ * self.periods_per_year).rename("lambda_annual")
+
+    @property
+    def lambda_annual_se(self) -> pd.Series:
+        return (self.se * self.periods_per_year).rename("lambda_annual_se")
+
+    def conf_int(self, level: float | None = None, *, annual: bool = False) -> pd.DataFrame:
+        """Interval of each price of risk at ``level`` (default: the stored confidence) with
+        the headline se: factor x [low, high], per period or (``annual=True``) per year."""
+        est, se = (self.lambda_annual, self.lambda_annual_se) if annual else (self.lambda_, self.se)
+        lo, hi = inference.interval(est, se, self.confidence if level is None else level)
+        out = pd.DataFrame({"low": lo, "high": hi})
+        out.index.name = "factor"
+        return out
+
+    @property
+    def sample(self) -> dict:
+        """The cross-section months used: {first, last, periods}."""
+        return sample_dict(self.gamma.index)
+
+    def _book_dict(self) -> tuple[dict | None, dict | None]:
+        if self.book_premia is None:
+            return None, None
+        bp = self.book_premia
+        pairs = inference.interval_pairs(bp["premium_annual"], bp["premium_annual_se"], self.confidence)
+        rows = {str(f): {"beta": jsonable(r["beta"]), "premium_annual": jsonable(r["premium_annual"]),
+                         "premium_annual_se": jsonable(r["premium_annual_se"]), "t": jsonable(r["t"]),
+                         "p": jsonable(r["p"]), "marks": r["marks"], "interval": pairs[str(f)]}
+                for f, r in bp.drop(index="total").iterrows()}
+        tot = bp.loc["total"]
+        total = {"value": jsonable(tot["premium_annual"]), "se": jsonable(tot["premium_annual_se"]),
+                 "t": jsonable(tot["t"]), "p": jsonable(tot["p"]), "marks": tot["marks"],
+                 "interval": pairs["total"]}
+        return rows, total
 
     def to_dict(self) -> dict:
+        book, book_total = self._book_dict()
         return {
+            "headline_se": self.headline_se,
+            "lambda_annual": series_dict(self.lambda_annual),
+            "lambda_annual_se": series_dict(self.lambda_annual_se),
+            "lambda_interval": inference.interval_pairs(self.lambda_annual, self.lambda_annual_se,
+                                                        self.confidence),
+            "p": series_dict(self.p),
+            "marks": {str(k): v for k, v in self.marks.items()},
+            "confidence": float(self.confidence),
+            "periods_per_year": int(self.periods_per_year),
+            "book_premium": book,
+            "book_premium_total": book_total,
+            "sample": self.sample,
             "factors": list(self.factors),
-            "lambda": _series_dict(self.lambda_),
-            "se_fm": _series_dict(self.se_fm),
-            "se_nw": _series_dict(self.se_nw),
-            "se_shanken": _series_dict(self.se_shanken),
-            "t_fm": _series_dict(self.t_fm),
-            "t_nw": _series_dict(self.t_nw),
-            "t_shanken": _series_dict(self.t_shanken),
+            "lambda": series_dict(self.lambda_),
+            "se_fm": series_dict(self.se_fm),
+            "se_nw": series_dict(self.se_nw),
+            "se_shanken": series_dict(self.se_shanken),
+            "t_fm": series_dict(self.t_fm),
+            "t_nw": series_dict(self.t_nw),
+            "t_shanken": series_dict(self.t_shanken),
             "shanken_approximate": bool(self.shanken_approximate),
-            "shanken_c": _clean(self.shanken_c),
-            "r2_cs": _clean(self.r2_cs),
+            "shanken_c": jsonable(self.shanken_c),
+            "r2_cs": jsonable(self.r2_cs),
             "n_periods": int(self.n_periods),
             "n_skipped": int(self.n_skipped),
             "n_assets": int(self.n_assets),
-            "pricing_errors": _series_dict(self.pricing_errors),
-            "pricing_error_test": _clean(self.pricing_error_test),
-            "pricing_error_test_shanken": _clean(self.pricing_error_test_shanken),
-            "grs": _clean(self.grs) if self.grs is not None else None,
+            "pricing_errors": series_dict(self.pricing_errors),
+            "pricing_error_test": jsonable(self.pricing_error_test),
+            "pricing_error_test_shanken": jsonable(self.pricing_error_test_shanken),
+            "grs": jsonable(self.grs) if self.grs is not None else None,
             "nw_lags": int(self.nw_lags),
             "betas_used": self.betas_used,
             "intercept": bool(self.intercept),
-            "cov_shanken": _frame_dict(self.cov_shanken),
+            "cov_shanken": frame_dict(self.cov_shanken),
             "warnings": list(self.warnings),
         }
 
@@ -119,7 +195,7 @@ class PremiaResult:
 
 
 def _chi2_test(stat: float, df: int) -> dict:
-    p = float(stats.chi2.sf(stat, df)) if df > 0 and np.isfinite(stat) else float("nan")
+    p = float(chdtrc(df, stat)) if df > 0 and np.isfinite(stat) else float("nan")
     return {"stat": float(stat), "df": int(df), "pvalue": p}
 
 
@@ -176,7 +252,7 @@ def _grs(y: np.ndarray, f: np.ndarray) -> dict | None:
     sharpe = float(mu @ np.linalg.solve(omega, mu))
     stat = (t / n) * ((t - n - k) / (t - k - 1)) * quad / (1.0 + sharpe)
     return {"stat": stat, "df1": int(n), "df2": int(t - n - k),
-            "pvalue": float(stats.f.sf(stat, n, t - n - k)), "n_periods": int(t)}
+            "pvalue": float(fdtrc(n, t - n - k, stat)), "n_periods": int(t)}
 
 
 def _full_rank(xtx: np.ndarray) -> np.ndarray:
@@ -192,7 +268,10 @@ def _full_rank(xtx: np.ndarray) -> np.ndarray:
 def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
                  factors: pd.DataFrame | None = None, intercept: bool = True,
                  nw_lags: int | str = "auto", resid_cov: pd.DataFrame | None = None,
-                 traded: list[str] | tuple[str, ...] | None = None) -> PremiaResult:
+                 traded: list[str] | tuple[str, ...] | None = None,
+                 book_betas: pd.Series | None = None, book_se: pd.Series | None = None,
+                 periods_per_year: int = 12,
+                 confidence: float = inference.DEFAULT_CONFIDENCE) -> PremiaResult:
     """Fama-MacBeth prices of risk with plain, Newey-West and Shanken standard errors.
 
     ``betas``: full-sample betas (assets x factors), or :class:`RollingBetas`, of which
@@ -201,8 +280,14 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
     covariance (unless ``resid_cov`` is given) and GRS; ``traded`` names the factors that
     are traded excess returns (GRS only when all are).  Vectorised over months: masked
     normal equations solved as one (T, P, P) stack.
+
+    ``periods_per_year`` annualises (12, 4, or 252 for daily data) and ``confidence`` sets
+    the level of the reported intervals.  With ``book_betas`` (and their ``book_se``) the
+    result carries the book's premium per factor and in total (:func:`book_premium`).
     """
-    ret = _as_frame(returns, "returns")
+    _check_periods(periods_per_year)
+    inference.check_level(confidence)
+    ret = as_frame(returns, "returns")
     notes: list[str] = []
     rolling = isinstance(betas, RollingBetas)
     if rolling:
@@ -239,7 +324,7 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
     k = len(fnames)
     fac = None
     if factors is not None:
-        fac = _as_frame(factors, "factors")
+        fac = as_frame(factors, "factors")
         absent = [f for f in fnames if f not in fac.columns]
         if absent:
             raise InputError(f"factor '{absent[0]}' of the betas is not in factors.", file="factors",
@@ -293,15 +378,11 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
     lam = gamma.mean(axis=0)
     dev = gamma - lam
     cov_fm = dev.T @ dev / (t_used - 1) / t_used
-    lags = _resolve_lags(nw_lags, t_used, "nw_lags")
+    lags = resolve_lags(nw_lags, t_used, "nw_lags")
     if lags >= t_used:
         raise InputError(f"nw_lags ({lags}) must be below the number of months used ({t_used}).",
                          column="nw_lags", fix="Use 'auto' or a smaller integer.")
-    s = dev.T @ dev
-    for lag in range(1, lags + 1):
-        g = dev[lag:].T @ dev[:-lag]
-        s += (1.0 - lag / (lags + 1.0)) * (g + g.T)
-    cov_nw = s / (t_used * (t_used - 1))
+    cov_nw = bartlett_long_run(dev, lags) / (t_used * (t_used - 1))
 
     # Pricing errors on the months used.
     yu, vu = y[used], valid[used]
@@ -380,7 +461,7 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
         se_nw = np.sqrt(np.diag(cov_nw))
         se_sh = np.sqrt(np.diag(cov_sh))
         t_fm, t_nw, t_sh = lam / se_fm, lam / se_nw, lam / se_sh
-    return PremiaResult(
+    res = PremiaResult(
         factors=tuple(names), lambda_=_series(lam, "lambda"), se_fm=_series(se_fm, "se_fm"),
         se_nw=_series(se_nw, "se_nw"), se_shanken=_series(se_sh, "se_shanken"),
         t_fm=_series(t_fm, "t_fm"), t_nw=_series(t_nw, "t_nw"), t_shanken=_series(t_sh, "t_shanken"),
@@ -392,7 +473,18 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
         cov_fm=pd.DataFrame(cov_fm, index=idx, columns=idx),
         cov_nw=pd.DataFrame(cov_nw, index=idx, columns=idx),
         cov_shanken=pd.DataFrame(cov_sh, index=idx, columns=idx),
-        shanken_c=c, n_assets=int(live.sum()), intercept=bool(intercept), warnings=tuple(notes))
+        shanken_c=c, n_assets=int(live.sum()), intercept=bool(intercept), warnings=tuple(notes),
+        periods_per_year=int(periods_per_year), confidence=float(confidence))
+    if book_betas is not None:
+        res = replace(res, book_premia=book_premium(book_betas, res, book_se=book_se,
+                                                    periods_per_year=periods_per_year))
+    return res
+
+
+def _check_periods(periods_per_year: int) -> None:
+    if periods_per_year not in (12, 4, 52, 252, 1):
+        raise InputError(f"periods_per_year must be 12 (monthly), 4 (quarterly) or 252 (daily), "
+                         f"not {periods_per_year}.", column="periods_per_year", fix="Pass 12, 4 or 252.")
 
 
 def book_premium(book_betas: pd.Series, premia: PremiaResult, *, book_se: pd.Series | None = None,
@@ -405,9 +497,7 @@ def book_premium(book_betas: pd.Series, premia: PremiaResult, *, book_se: pd.Ser
     full covariance of lambda, b' V b, plus the beta terms.  V is the Shanken covariance when
     available, else Newey-West.  Annualised by ``periods_per_year`` (12 or 4), passed explicitly.
     """
-    if periods_per_year not in (12, 4, 52, 1):
-        raise InputError(f"periods_per_year must be 12 (monthly) or 4 (quarterly), not {periods_per_year}.",
-                         column="periods_per_year", fix="Pass 12 or 4.")
+    _check_periods(periods_per_year)
     b = pd.Series(book_betas, dtype=float)
     fnames = [f for f in premia.lambda_.index if f != CONST]
     unknown = [f for f in b.index if f not in fnames]
@@ -432,7 +522,8 @@ def book_premium(book_betas: pd.Series, premia: PremiaResult, *, book_se: pd.Ser
     out.loc["total"] = [np.nan, np.nan, prem.sum(), np.sqrt(total_var)]
     out["premium_annual"] = out["premium"] * periods_per_year
     out["premium_annual_se"] = out["premium_se"] * periods_per_year
-    with np.errstate(invalid="ignore", divide="ignore"):
-        out["t"] = out["premium"] / out["premium_se"]
+    out["t"] = inference.t_stat(out["premium"], out["premium_se"])
+    out["p"] = inference.p_value(out["t"])
+    out["marks"] = inference.marks(out["p"])
     out.attrs["se_source"] = source
     return out

@@ -26,6 +26,7 @@ from scipy.linalg import solve_triangular
 
 from .errors import InputError
 from .jsonable import jsonable
+from .windows import sample_dict, window_moments
 
 __all__ = [
     "LagSelection",
@@ -469,7 +470,8 @@ class StateResult:
             "lags": self.lags,
             "lag_selection": self.lag_selection,
             "nobs": self.nobs,
-            "sample": {"start": dates[0], "end": dates[-1]},
+            # start/end kept for existing readers; first/last/periods is the common contract.
+            "sample": {"start": dates[0], "end": dates[-1], **sample_dict(self.raw.index)},
             "intercept": self.intercept,
             "intercept_se": self.intercept_se,
             "coef": self.coef,
@@ -636,6 +638,8 @@ class RealtimeInnovations:
                             "fit_dates": [None if pd.isna(d) else str(d) for d in self.fit_dates],
                             "raw": _series_dict(self.raw),
                             "orthogonal": _series_dict(self.orthogonal)},
+            # the periods that carry a real-time innovation (forecast rows)
+            "sample": sample_dict(self.raw.index[self.raw.notna().all(axis=1).to_numpy()]),
             "warnings": list(self.warnings),
         })
 
@@ -692,15 +696,10 @@ def realtime_innovations(data: pd.DataFrame, *, lags: int | str = 1, min_window:
     z = z_all - z_all[:first_n + p].mean(axis=0)
     x, y = _lagged(z, p)
     m_dim = x.shape[1]
-    sxx = np.cumsum(np.einsum("ti,tj->tij", x, x), axis=0)
-    sxy = np.cumsum(np.einsum("ti,tj->tij", x, y), axis=0)
-    syy = np.cumsum(np.einsum("ti,tj->tij", y, y), axis=0)
-    count = np.arange(1, n + 1, dtype=float)
-    if window is not None:
-        w = int(window)
-        for s in (sxx, sxy, syy):
-            s[w:] = s[w:] - s[:-w].copy()
-        count = np.minimum(count, w)
+    # Window sums of x x', x y', y y' through τ (expanding, or the last ``window`` rows).
+    mom = window_moments(x, y, window=None if window is None else int(window))
+    sxx, sxy, syy = mom.sxx, mom.sxy, mom.syy
+    count = mom.count.astype(float)
     fit = np.arange(first_n - 1, n)             # rows τ at which a fit exists
     # Scale to unit diagonal before solving: same solution, smaller condition number.
     a = sxx[fit]

@@ -222,3 +222,67 @@ def test_reordering_assets_changes_nothing(seed):
     assert base.pricing_error_test["stat"] == pytest.approx(other.pricing_error_test["stat"], rel=1e-6)
     pd.testing.assert_series_equal(base.pricing_errors.loc[perm], other.pricing_errors,
                                    rtol=1e-8, atol=1e-15)
+
+
+# ------------------------------------------------------------------ derived figures
+
+
+def test_headline_annual_interval_p_and_marks(demo_case):
+    """Headline figures: Shanken se with full betas (Shanken 1992), Newey-West otherwise;
+    annual lambda = 12 lambda, interval = annual lambda +/- z se at the stored level, p from
+    the normal distribution (scipy.stats.norm in the test), chi-square p of the pricing-error
+    test equal to scipy.stats.chi2.sf."""
+    from scipy import stats
+    fac, ret, _ = demo_case
+    res = fama_macbeth(ret, time_series_betas(ret, fac).betas, factors=fac, confidence=0.9)
+    assert res.headline_se == "shanken"
+    d = json.loads(json.dumps(res.to_dict(), allow_nan=False))
+    z = stats.norm.ppf(0.95)
+    for f in res.factors:
+        lam_a, se_a = 12 * res.lambda_[f], 12 * res.se_shanken[f]
+        assert d["lambda_annual"][f] == pytest.approx(lam_a, rel=1e-12)
+        assert d["lambda_annual_se"][f] == pytest.approx(se_a, rel=1e-12)
+        assert d["lambda_interval"][f] == pytest.approx([lam_a - z * se_a, lam_a + z * se_a], rel=1e-10)
+        p = 2 * stats.norm.sf(abs(res.lambda_[f] / res.se_shanken[f]))
+        assert d["p"][f] == pytest.approx(p, rel=1e-8, abs=1e-300)
+        assert d["marks"][f] == ("***" if p < 0.01 else "**" if p < 0.05 else "*" if p < 0.1 else "")
+    assert d["confidence"] == 0.9
+    lo = res.conf_int(0.95)
+    np.testing.assert_allclose(lo["low"], res.lambda_ - stats.norm.ppf(0.975) * res.se_shanken, rtol=1e-12)
+    pe = res.pricing_error_test
+    assert pe["pvalue"] == pytest.approx(stats.chi2.sf(pe["stat"], pe["df"]), rel=1e-10)
+    assert d["sample"] == {"first": str(res.gamma.index[0]), "last": str(res.gamma.index[-1]),
+                           "periods": res.n_periods}
+    rolled = fama_macbeth(ret, rolling_betas(ret, fac, window=60, min_obs=36), nw_lags=3)
+    assert rolled.headline_se == "nw" and rolled.to_dict()["headline_se"] == "nw"
+    np.testing.assert_allclose(rolled.to_dict()["lambda_annual_se"]["mkt"], 12 * rolled.se_nw["mkt"])
+    assert rolled.to_dict()["sample"]["periods"] == 480 - 36
+
+
+def test_book_premium_inside_the_stage(demo_case):
+    """Given the book's betas, the stage carries book_premium() (per factor and total,
+    annual, with t, p, marks and intervals at the level); quarterly annualises by 4."""
+    from scipy import stats
+    fac, ret, _ = demo_case
+    betas = time_series_betas(ret, fac).betas
+    b = pd.Series({"mkt": 1.0, "term": 0.3, "def": -0.2})
+    se_b = pd.Series({"mkt": 0.02, "term": 0.05, "def": 0.04})
+    res = fama_macbeth(ret, betas, factors=fac, book_betas=b, book_se=se_b, confidence=0.8)
+    tab = book_premium(b, res, book_se=se_b)
+    d = json.loads(json.dumps(res.to_dict(), allow_nan=False))
+    z = stats.norm.ppf(0.9)
+    for f in ("mkt", "term", "def", "dy"):
+        row = d["book_premium"][f]
+        assert row["premium_annual"] == pytest.approx(tab.loc[f, "premium_annual"], rel=1e-12)
+        assert row["premium_annual_se"] == pytest.approx(tab.loc[f, "premium_annual_se"], rel=1e-12)
+        if tab.loc[f, "premium_annual_se"] > 0:
+            assert row["interval"] == pytest.approx(
+                [tab.loc[f, "premium_annual"] - z * tab.loc[f, "premium_annual_se"],
+                 tab.loc[f, "premium_annual"] + z * tab.loc[f, "premium_annual_se"]], rel=1e-10)
+    assert d["book_premium"]["dy"]["t"] is None and d["book_premium"]["dy"]["marks"] == ""
+    tot = d["book_premium_total"]
+    assert tot["value"] == pytest.approx(tab.loc["total", "premium_annual"], rel=1e-12)
+    assert tot["se"] == pytest.approx(tab.loc["total", "premium_annual_se"], rel=1e-12)
+    q = fama_macbeth(ret, betas, factors=fac, book_betas=b, periods_per_year=4)
+    assert q.to_dict()["book_premium"]["mkt"]["premium_annual"] == pytest.approx(4 * res.lambda_["mkt"])
+    assert fama_macbeth(ret, betas, factors=fac).to_dict()["book_premium"] is None

@@ -223,6 +223,8 @@ def test_realtime_layout_and_factors(demo) -> None:
     np.testing.assert_array_equal(g["mkt"].iloc[120:], rt.raw["mkt"].iloc[120:])
     json.dumps(rt.to_dict())
     assert rt.to_dict()["innovations"]["raw"]["mkt"][0] is None
+    assert rt.to_dict()["sample"] == {"first": str(rt.raw.index[120]), "last": str(rt.raw.index[-1]),
+                                      "periods": len(rt.raw) - 120}
 
 
 # ---------------------------------------------------------------------- scenarios
@@ -273,6 +275,8 @@ def test_to_dict_contract_and_frame(fit) -> None:
     assert d["innovations"]["dates"][0] == "1986-02"
     assert len(d["innovations"]["orthogonal"]["rf"]) == fit.nobs
     assert d["transform"]["mkt"]["dy"] == 0.0
+    assert d["sample"]["first"] == "1986-02" and d["sample"]["periods"] == fit.nobs
+    assert d["sample"]["last"] == d["innovations"]["dates"][-1]
     table = fit.to_frame()
     assert table.shape == (5 * 6, 3)
     assert table.loc[("dy", "dy.L1"), "coef"] == pytest.approx(fit.coef.loc["dy", "dy.L1"])
