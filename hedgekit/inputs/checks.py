@@ -81,12 +81,15 @@ def _first_cell(mask: np.ndarray) -> tuple[int, int]:
     return i, int(np.flatnonzero(mask[i])[0])
 
 
-def _units_fix(units: Units, column: str, accept_hint: str) -> str:
+def _units_fix(units: Units, column: str, accept_hint: str, *, percent_likely: bool = True) -> str:
+    """The fix: declare percent (unless already declared or unlikely), else correct or accept."""
+    accept = f'{accept_hint} with accept_extreme = {{ {units.file_key} = ["{column}"] }} in [data].'
     if units.is_percent(column):
-        return (f"the column is declared in percent already, so check the export (basis points? prices?); "
-                f"{accept_hint}")
+        return f"the column is declared in percent already, so check the export (basis points? prices?); {accept}"
+    if not percent_likely:
+        return f"correct the cell from the source (a price or an export error?); {accept}"
     return (f"divide by 100, or declare percent in [data]: {units.declare(column)}, "
-            f'or units = "percent" for every file; {accept_hint}')
+            f'or units = "percent" for every file; {accept}')
 
 
 def check_returns(values: np.ndarray, columns: Sequence[str], lines: np.ndarray, *, file: str, units: Units,
@@ -106,7 +109,7 @@ def check_returns(values: np.ndarray, columns: Sequence[str], lines: np.ndarray,
         col = str(columns[j])
         x = values[:, j]
         i = int(np.nanargmax(np.abs(x)))
-        hint = f'if the values are genuine, accept them with accept_extreme = {{ {units.file_key} = ["{col}"] }}'
+        hint = "if the values are genuine, accept them"
         raise InputError(f"values look like percent: the typical size of a return in this column is "
                          f"{typical[j]:.3g} (median absolute value, e.g. {x[i]:.4g} here), about 100 times a "
                          f"decimal {period}ly return's; hedgekit expects decimals (0.012 for a 1.2 % return).",
@@ -119,9 +122,10 @@ def check_returns(values: np.ndarray, columns: Sequence[str], lines: np.ndarray,
         col = str(columns[j])
         x = float(values[i, j])
         what = "below -100 %, a loss beyond the whole position" if x < -1 else "beyond +100 %"
-        hint = f'if it is genuine, accept it with accept_extreme = {{ {units.file_key} = ["{col}"] }} in [data]'
         raise InputError(f"value {x:.4g} is a return of {x * 100:,.4g} % in one {period}: {what}.",
-                         file=file, row=int(lines[i]), column=col, fix=_units_fix(units, col, hint))
+                         file=file, row=int(lines[i]), column=col,
+                         fix=_units_fix(units, col, "if it is genuine, accept it",
+                                        percent_likely=abs(x) <= 100.0))
 
 
 def check_levels(values: np.ndarray, columns: Sequence[str], lines: np.ndarray, *, file: str, units: Units,
@@ -136,10 +140,11 @@ def check_levels(values: np.ndarray, columns: Sequence[str], lines: np.ndarray, 
         i, j = _first_cell(cell)
         col = str(columns[j])
         x = float(values[i, j])
-        hint = f'if the level is genuine, accept it with accept_extreme = {{ {units.file_key} = ["{col}"] }}'
         raise InputError(f"level {x:.4g} is {x * 100:,.4g} % a year: a yield, spread or dividend yield beyond "
-                         f"{LEVEL_LIMIT:.0%} is almost surely in percent (hedgekit expects 0.035 for 3.5 %).",
-                         file=file, row=int(lines[i]), column=col, fix=_units_fix(units, col, hint))
+                         f"{LEVEL_LIMIT * 100:.0f} % is almost surely in percent (hedgekit expects 0.035 for 3.5 %).",
+                         file=file, row=int(lines[i]), column=col,
+                         fix=_units_fix(units, col, "if the level is genuine, accept it",
+                                        percent_likely=abs(x) <= 100.0))
     warnings = []
     limit = SHORT_RATE_PERIOD_LIMIT / periods_per_year
     period = PERIOD_WORD.get(periods_per_year, "period")

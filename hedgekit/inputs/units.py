@@ -33,8 +33,8 @@ class Units:
 
     def declare(self, column: str) -> str:
         """The setting that declares ``column`` of this file in percent."""
-        return (f'units = {{ {self.file_key} = {{ {column} = "percent" }} }} in [data] '
-                f'(or units = {{ {self.file_key} = "percent" }} for the whole file)')
+        return (f'units = {{ {self.file_key} = {{ {column} = "percent" }} }} for this column, '
+                f'units = {{ {self.file_key} = "percent" }} for the file')
 
 
 def resolve_units(units: str | Mapping, file_key: str, columns: Sequence[str], *, config_file: str) -> Units:
