@@ -1,13 +1,28 @@
 """The TOML configuration: schema, defaults, validation.
 
 One file per book. Paths are relative to the file. Unknown keys are an error naming the
-key and the nearest valid one. Every section and key is listed in ``SCHEMA`` with its type,
-default and allowed range; :func:`load_config` returns a frozen :class:`Config`.
+key and the nearest valid one; a key that moved is an error naming its new place
+(``MOVED``). Every section and key is listed in ``SCHEMA`` with its type, default and
+allowed range; :func:`load_config` returns a frozen :class:`Config`.
+
+Limits checked here, once (docs/interface.md):
+
+* the configuration file must be a regular file of at most ``MAX_CONFIG_BYTES`` (1 MB):
+  a device such as ``/dev/zero`` or a FIFO is refused before it is opened for reading;
+* ``[portfolio] nav`` must be positive, finite and below ``MAX_NAV`` (1e13 in the book's
+  currency: above the assets of any single fund, so a larger value is a typing slip;
+  common practice, no source);
+* ``[intervals] confidence`` (default 0.95) lies in [0.5, 1): the one level of every
+  interval the tool reports;
+* every number must be finite (TOML allows ``inf`` and ``nan``).
 """
 
 from __future__ import annotations
 
 import difflib
+import math
+import os
+import stat
 import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -18,10 +33,23 @@ from typing import Any
 from .errors import InputError
 
 AUTO = "auto"
+MAX_CONFIG_BYTES = 1_000_000
+MAX_NAV = 1e13
+UNIT_WORDS = ("decimal", "percent")
+# [data] keys that name files; only these are ever opened or hashed.
+DATA_FILES = ("states", "assets", "holdings", "portfolio_returns", "instruments", "instrument_sheet",
+              "factors", "current_positions")
+# Keys that moved: (section, key) -> where they live now.
+MOVED = {("hedge", "confidence"): ("intervals", "confidence"),
+         ("backtest", "min_months"): ("backtest", "min_periods")}
 
-# key -> (kind, default, extra). Kinds: "path", "str", "int", "float", "bool", "list[str]",
-# "choice", "int|choice", "map[float]", "map[band]", "float|map[float]", "list[scenario]",
-# "int|str", "str|none".
+# key -> (kind, default, extra). Kinds: "path", "str", "int", "float", "float|none", "bool",
+# "list[str]", "choice", "int|choice", "map[float]", "map[band]", "float|map[float]",
+# "list[scenario]", "str|none", "units", "map[list[str]]".
+# Files whose values ``units`` and ``accept_extreme`` may name (the sheet has its own units).
+SERIES_FILES = ("states", "assets", "portfolio_returns", "instruments", "factors")
+UNIT_FILES = SERIES_FILES + ("holdings", "current_positions")
+
 SCHEMA: dict[str, dict[str, tuple[str, Any, Any]]] = {
     "data": {
         "states": ("path", None, None),
@@ -32,8 +60,12 @@ SCHEMA: dict[str, dict[str, tuple[str, Any, Any]]] = {
         "instrument_sheet": ("path", None, None),
         "factors": ("path", None, None),
         "current_positions": ("path", None, None),
-        "units": ("choice", "decimal", ("decimal", "percent")),
-        "frequency": ("choice", "monthly", ("monthly", "quarterly")),
+        "units": ("units", "decimal", UNIT_WORDS),
+        "frequency": ("choice", "monthly", ("monthly", "quarterly", "daily")),
+        "accept_extreme": ("map[list[str]]", {}, None),
+    },
+    "intervals": {
+        "confidence": ("float", 0.95, (0.5, None)),
     },
     "portfolio": {
         "name": ("str", "Portfolio", None),
@@ -70,7 +102,6 @@ SCHEMA: dict[str, dict[str, tuple[str, Any, Any]]] = {
         "premium_weight": ("float", 0.0, (0.0, None)),
         "covariance": ("choice", "sample", ("sample", "ledoit-wolf")),
         "robust": ("bool", False, None),
-        "confidence": ("float", 0.95, (0.5, 0.9999)),
         "closest": ("bool", False, None),
     },
     "stress": {
@@ -82,7 +113,7 @@ SCHEMA: dict[str, dict[str, tuple[str, Any, Any]]] = {
         "rebalance": ("choice", "quarterly", ("quarterly", "monthly")),
         "start": ("str|none", None, None),
         "window": ("int|choice", "expanding", ("expanding",)),
-        "min_months": ("int", 120, (24, None)),
+        "min_periods": ("int", 120, (24, None)),
     },
     "report": {
         "output": ("path", "hedgekit_output", None),
@@ -119,10 +150,14 @@ class Config:
     sections: Mapping[str, Mapping[str, Any]] = field(default_factory=dict)
 
     def __getitem__(self, section: str) -> Mapping[str, Any]:
-        return self.sections[section]
+        values = self.sections[section]
+        moved = {old: self.sections[new_s][new_k] for (s, old), (new_s, new_k) in MOVED.items()
+                 if s == section and old not in values}
+        return MappingProxyType({**values, **moved}) if moved else values
 
     def data_path(self, key: str) -> Path | None:
-        value = self.sections["data"].get(key)
+        """The path of a [data] file key, or None when unset (only ``DATA_FILES`` are paths)."""
+        value = self.sections["data"].get(key) if key in DATA_FILES else None
         return None if value is None else Path(value)
 
     def to_dict(self) -> dict[str, Any]:
@@ -183,6 +218,8 @@ def _check(section: str, key: str, value: Any, kind: str, extra: Any, where: str
             return None
         if isinstance(value, bool) or not isinstance(value, int | float):
             raise bad("a number")
+        if not math.isfinite(value):
+            raise bad("a finite number")
         return float(in_range(float(value)))
     if kind == "choice":
         if value not in extra:
@@ -212,9 +249,23 @@ def _check(section: str, key: str, value: Any, kind: str, extra: Any, where: str
         return tuple(value)
     if kind == "map[float]":
         if not isinstance(value, dict) or not all(
-                isinstance(v, int | float) and not isinstance(v, bool) for v in value.values()):
-            raise bad("a table of numbers, e.g. { term = 0.0 }")
+                isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
+                for v in value.values()):
+            raise bad("a table of finite numbers, e.g. { term = 0.0 }")
         return {k: float(v) for k, v in value.items()}
+    if kind == "units":
+        return _check_units(value, name, extra, where)
+    if kind == "map[list[str]]":
+        example = '{ assets = ["biotech"] }'
+        if not isinstance(value, dict):
+            raise bad(f"a table of file keys and column lists, e.g. {example}")
+        for k, cols in value.items():
+            _file_key(k, name, SERIES_FILES, where)
+            if (not isinstance(cols, list) or not cols
+                    or not all(isinstance(c, str) and c for c in cols)):
+                raise InputError(f"{name}.{k} = {cols!r} is not a list of column names.", file=where,
+                                 fix=f"write e.g. {key} = {example}.")
+        return {k: tuple(cols) for k, cols in value.items()}
     if kind == "float|map[float]":
         if isinstance(value, dict):
             out = _check(section, key, value, "map[float]", None, where, base)
@@ -265,6 +316,37 @@ def _check(section: str, key: str, value: Any, kind: str, extra: Any, where: str
     raise AssertionError(kind)  # pragma: no cover - schema kinds are closed
 
 
+def _file_key(key: str, name: str, allowed: tuple[str, ...], where: str) -> None:
+    if key not in allowed:
+        raise InputError(f"{name} names {key!r}, not a file key of [data].", file=where,
+                         fix=f"did you mean {_nearest(key, list(allowed))!r}? Keys: {', '.join(allowed)}.")
+
+
+def _check_units(value: Any, name: str, words: tuple[str, ...], where: str) -> Any:
+    """``units``: one word for every series file, or ``{file: word | {column: word}}``."""
+    example = 'units = { states = { dy = "percent" }, assets = "decimal" }'
+
+    def word(w: Any, label: str) -> str:
+        if w not in words:
+            raise InputError(f"{label} = {w!r} is not one of {', '.join(map(repr, words))}.", file=where,
+                             fix=f"did you mean {_nearest(str(w), list(words))!r}?")
+        return w
+
+    if isinstance(value, str):
+        return word(value, name)
+    if not isinstance(value, dict):
+        raise InputError(f"{name} is neither a word nor a table.", file=where,
+                         fix=f'write units = "percent", or per file and column: {example}.')
+    out: dict[str, Any] = {}
+    for k, v in value.items():
+        _file_key(k, name, UNIT_FILES, where)
+        if isinstance(v, dict):
+            out[k] = {col: word(w, f"{name}.{k}.{col}") for col, w in v.items()}
+        else:
+            out[k] = word(v, f"{name}.{k}")
+    return out
+
+
 def parse_config(text: str, *, path: Path | None = None, base: Path | None = None) -> Config:
     """Parse and validate configuration text. Raises :class:`InputError` on any problem."""
     where = str(path) if path else "configuration"
@@ -282,6 +364,10 @@ def parse_config(text: str, *, path: Path | None = None, base: Path | None = Non
         if not isinstance(content, dict):
             raise InputError(f"{section} must be a [{section}] table.", file=where)
         for key in content:
+            if (section, key) in MOVED:
+                new_s, new_k = MOVED[(section, key)]
+                raise InputError(f"[{section}] {key} has moved to [{new_s}] {new_k}.", file=where,
+                                 fix=f"write {new_k} = {content[key]!r} under [{new_s}] instead.")
             if key not in SCHEMA[section]:
                 raise InputError(f"unknown key {key!r} in [{section}].", file=where,
                                  fix=f"did you mean {_nearest(key, list(SCHEMA[section]))!r}? "
@@ -301,6 +387,14 @@ def parse_config(text: str, *, path: Path | None = None, base: Path | None = Non
     if nav is not None and nav <= 0:
         raise InputError(f"[portfolio] nav = {nav} must be positive.", file=where,
                          fix="give the net asset value in currency units, e.g. nav = 250_000_000.")
+    if nav is not None and nav >= MAX_NAV:
+        raise InputError(f"[portfolio] nav = {nav:.4g} is beyond any plausible fund size "
+                         f"(limit {MAX_NAV:.0e} in the book's currency).", file=where,
+                         fix="give the net asset value in currency units, e.g. nav = 250_000_000.")
+    level = sections["intervals"]["confidence"]
+    if not level < 1.0:
+        raise InputError(f"[intervals] confidence = {level} must be below 1.", file=where,
+                         fix="use a level in [0.5, 1), e.g. 0.95 or 0.9.")
     lags = sections["states"]["lags"]
     if isinstance(lags, int) and not 1 <= lags <= 24:
         raise InputError(f"[states] lags = {lags} is outside 1..24.", file=where,
@@ -318,16 +412,41 @@ def parse_config(text: str, *, path: Path | None = None, base: Path | None = Non
 
 
 def load_config(path: str | Path) -> Config:
-    """Read and validate a TOML configuration file."""
+    """Read and validate a TOML configuration file.
+
+    Only a regular file of at most ``MAX_CONFIG_BYTES`` is read: a device (``/dev/zero``),
+    a FIFO or a socket is refused before it is opened, so reading can neither hang nor
+    exhaust memory.
+    """
     path = Path(path)
-    if not path.exists():
+    try:
+        info = path.stat()
+    except FileNotFoundError:
         raise InputError("configuration file not found.", file=str(path),
-                         fix="pass the path of a .toml file, e.g. demo_portfolios/larkspur.toml.")
-    if path.is_dir():
+                         fix="pass the path of a .toml file, e.g. demo_portfolios/larkspur.toml.") from None
+    except OSError as exc:
+        raise InputError(f"cannot read the configuration file ({exc.strerror}).", file=str(path),
+                         fix="check the path and its permissions.") from None
+    if stat.S_ISDIR(info.st_mode):
         raise InputError("is a folder, not a configuration file.", file=str(path),
                          fix="pass the .toml file inside it.")
+    if not stat.S_ISREG(info.st_mode):
+        raise InputError("is not a regular file (a device, FIFO or socket).", file=str(path),
+                         fix="pass the path of a .toml file.")
+    if info.st_size > MAX_CONFIG_BYTES:
+        raise InputError(f"is {info.st_size:,} bytes, above the {MAX_CONFIG_BYTES:,}-byte limit for a "
+                         "configuration file.", file=str(path), fix="pass the book's .toml file.")
     try:
-        text = path.read_text(encoding="utf-8-sig")  # a byte-order mark is fine
+        with open(path, "rb", opener=lambda p, f: os.open(p, f | os.O_NONBLOCK)) as fh:
+            raw = fh.read(MAX_CONFIG_BYTES + 1)
+    except OSError as exc:
+        raise InputError(f"cannot read the configuration file ({exc.strerror}).", file=str(path),
+                         fix="check the path and its permissions.") from None
+    if len(raw) > MAX_CONFIG_BYTES:
+        raise InputError(f"grew beyond the {MAX_CONFIG_BYTES:,}-byte limit while being read.",
+                         file=str(path), fix="pass the book's .toml file.")
+    try:
+        text = raw.decode("utf-8-sig")  # a byte-order mark is fine
     except UnicodeDecodeError:
         raise InputError("is not UTF-8 text.", file=str(path), fix="save it as UTF-8.") from None
     return parse_config(text, path=path, base=path.resolve().parent)

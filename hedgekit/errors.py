@@ -3,9 +3,29 @@
 ``InputError`` (exit 2): bad input or configuration; the message names the file,
 the row or date, the column and what to do.  ``UnreachableError`` (exit 3): hedge
 targets the instruments or limits cannot reach.  Anything else exits 1.
+
+Text taken from a user's file (a cell, a column name) is echoed through :func:`shown`,
+which cuts it to ``SHOWN_CHARS`` characters with an ellipsis and escapes control
+characters, so a 50 MB header cannot flood the terminal.
 """
 
 from __future__ import annotations
+
+SHOWN_CHARS = 60
+
+
+def shown(value: object, limit: int = SHOWN_CHARS) -> str:
+    """``value`` as text for a message: control characters escaped, at most ``limit`` characters."""
+    text = str(value)
+    if len(text) > 4 * limit:
+        text = text[:4 * limit]
+    text = "".join(ch if ch.isprintable() else ascii(ch)[1:-1] for ch in text)
+    return text if len(text) <= limit else text[:limit - 1] + "…"
+
+
+def quoted(value: object, limit: int = SHOWN_CHARS) -> str:
+    """``'value'`` cut to a readable length (see :func:`shown`)."""
+    return f"'{shown(value, limit)}'"
 
 
 class HedgekitError(Exception):
@@ -17,20 +37,22 @@ class HedgekitError(Exception):
 class InputError(HedgekitError):
     """Bad input file or configuration: exit code 2.
 
-    Build the message with :func:`input_error` so every one names where and what to do.
+    ``file``, ``row`` (a number as counted in the file, header = row 1, or a text such as
+    ``"date 1994-02"``), ``column`` and ``fix`` are kept as attributes and joined into one line.
     """
 
     exit_code = 2
 
     def __init__(self, message: str, *, file: str | None = None, row: int | str | None = None,
                  column: str | None = None, fix: str | None = None) -> None:
+        column = None if column is None else shown(column)
         self.file, self.row, self.column, self.fix = file, row, column, fix
         parts = []
         where = []
         if file:
             where.append(str(file))
         if row is not None:
-            where.append(f"row {row}" if isinstance(row, int) else str(row))
+            where.append(f"row {row}" if isinstance(row, int) else shown(row))
         if column is not None:
             where.append(f"column '{column}'")
         if where:
@@ -50,9 +72,3 @@ class UnreachableError(HedgekitError):
         super().__init__(message)
         self.factors = list(factors or [])
         self.result = result
-
-
-class StageNotBuilt(HedgekitError):
-    """A command whose stage is not built yet: exit code 1."""
-
-    exit_code = 1

@@ -14,7 +14,7 @@ from hypothesis import strategies as st
 from hedgekit.cli import main
 from hedgekit.config import load_config
 from hedgekit.errors import InputError
-from hedgekit.inputs import _time_series, load_dataset, read_holdings
+from hedgekit.inputs import load_dataset, read_holdings, read_series
 
 from .helpers import demo_copy
 
@@ -173,10 +173,10 @@ def test_only_needed_files_are_read(tmp_path):
 def test_dates_days_and_quarterly(tmp_path):
     p = tmp_path / "q.csv"
     p.write_text("date,a\n2020-03-31,0.01\n2020-06-30,0.02\n2020-Q3,0.03\n")
-    frame = _time_series(p, "assets", "Q")
+    frame = read_series(p, "assets", frequency="quarterly")
     assert [str(x) for x in frame.index] == ["2020Q1", "2020Q2", "2020Q3"]
     p.write_text("date,a\n2020-01-31,0.01\n2020-03,0.02\n")
-    frame = _time_series(p, "assets", "M")
+    frame = read_series(p, "assets", frequency="monthly")
     assert [str(x) for x in frame.index] == ["2020-01", "2020-02", "2020-03"]  # the gap becomes a blank row
     assert np.isnan(frame.loc[pd.Period("2020-02", "M"), "a"])
 
@@ -187,8 +187,8 @@ def test_parquet_reads_like_csv(tmp_path):
     csv.write_text("date,a,b\n2020-01,0.01,\n2020-02,0.02,0.03\n")
     frame = pd.read_csv(csv)
     frame.to_parquet(tmp_path / "a.parquet", index=False)
-    a = _time_series(csv, "assets", "M")
-    b = _time_series(tmp_path / "a.parquet", "assets", "M")
+    a = read_series(csv, "assets")
+    b = read_series(tmp_path / "a.parquet", "assets")
     pd.testing.assert_frame_equal(a, b, check_freq=False)
 
 
@@ -205,9 +205,9 @@ def test_random_malformed_csv_only_raises_input_error(tmp_path, text):
     """Fuzz the reader: whatever the bytes, the only failure is hedgekit's own InputError."""
     p = tmp_path / "fuzz.csv"
     p.write_text(text)
-    for freq in ("M", "Q"):
+    for frequency in ("monthly", "quarterly", "daily"):
         try:
-            _time_series(p, "assets", freq)
+            read_series(p, "assets", frequency=frequency)
         except InputError:
             pass
 
