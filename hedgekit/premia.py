@@ -216,12 +216,69 @@ def _scaled_residuals(y: np.ndarray, b: np.ndarray, f: np.ndarray) -> np.ndarray
     return e / np.sqrt(n_i)
 
 
-def _pinv_quadratic(e: np.ndarray, v: np.ndarray, rtol: float = 1e-10) -> tuple[float, int]:
-    """v' (E'E)^+ v and the rank of E'E, from the smaller Gram matrix of E (T x N).
+def _pinv_quadratic(e: np.ndarray, v: np.ndarray, rtol: float = 1e-10,
+                    x: np.ndarray | None = None) -> tuple[float, int]:
+    """v' (E'E)^+ v and the rank of E'E, from a Cholesky solve in the smaller space.
 
-    Eigenvalues below rtol times the largest are treated as zero (as numpy's pinv
-    with rcond=rtol on E'E).
+    E (T x N) has columns that sum to zero over time (deviations from each asset's mean),
+    so 1'E = 0; with full-sample betas and every return observed, each row is also a
+    cross-sectional residual, so E X = 0 for the design X (N x P) and v = alpha-bar is
+    orthogonal to X.  A known null space Z (orthonormal) of the Gram with v (or E v) in
+    its range gives the pseudo-inverse by a full-rank solve: for any s > 0,
+    A^+ r = (A + s Z Z')^{-1} r for r in the range of A.  So:
+
+    * N < T: A = E'E (N x N), Z = the columns of X when E X = 0 (to round-off), else none;
+      v'A^+ v = |L^{-1} v|², L the Cholesky factor of A + s Z Z'.
+    * N >= T: A = E E' (T x T), Z = 1/sqrt(T); v'(E'E)^+ v = |A^+ E v|².
+
+    Forming the Gram costs O(T N min(N, T)) and the solve O(min(N, T)³): no
+    eigendecomposition.  When the Cholesky factorisation fails or LAPACK's reciprocal
+    condition estimate is below 1e-7 (where the routes could differ beyond 1e-10), the eigenvalue route is used
+    instead: eigenvalues below rtol times the largest are zero (numpy's pinv with
+    rcond=rtol on E'E).
     """
+    from scipy.linalg import cho_solve, lapack
+
+    t, n = e.shape
+    if n < t:
+        gram, rhs = e.T @ e, v
+        null = None
+        if x is not None and x.shape[1] < n:
+            scale = np.abs(e).max() * np.abs(x).sum(axis=0).max()
+            if np.abs(e @ x).max() <= 1e-12 * scale:
+                null = np.linalg.qr(x)[0]
+        rank = n
+        if null is not None:
+            rhs = rhs - null @ (null.T @ rhs)
+            gram = gram + (np.trace(gram) / n) * (null @ null.T)
+            rank = n - null.shape[1]
+    else:
+        gram = e @ e.T
+        rhs = e @ v
+        rhs = rhs - rhs.mean()            # exactly orthogonal to 1 (round-off only)
+        gram = gram + np.trace(gram) / t / t   # + s u u' with u = 1/sqrt(T), s = trace/T
+        rank = t - 1
+    anorm = np.abs(gram).sum(axis=0).max()
+    chol, info = lapack.dpotrf(gram, lower=1, clean=1)
+    if info == 0:
+        rcond, info_c = lapack.dpocon(chol, anorm, uplo="L")
+        if info_c == 0 and rcond > 1e-7:
+            if n < t:
+                z = _lower_solve(chol, rhs)
+                return float(z @ z), int(rank)
+            w = cho_solve((chol, True), rhs)
+            return float(w @ w), int(rank)
+    return _pinv_quadratic_eigen(e, v, rtol)
+
+
+def _lower_solve(low: np.ndarray, b: np.ndarray) -> np.ndarray:
+    from scipy.linalg import solve_triangular
+    return solve_triangular(low, b, lower=True, check_finite=False)
+
+
+def _pinv_quadratic_eigen(e: np.ndarray, v: np.ndarray, rtol: float) -> tuple[float, int]:
+    """v' (E'E)^+ v by the eigendecomposition of the smaller Gram matrix of E (T x N):
+    the fallback for (near) rank-deficient systems."""
     t, n = e.shape
     if n <= t:
         w, u = np.linalg.eigh(e.T @ e)
@@ -441,7 +498,7 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
     r2_cs = float(1.0 - np.var(abar[live]) / np.var(rbar[live]))
     # cov(alpha-bar)_ij = sum_t d_ti d_tj / (n_i n_j) = (E'E)_ij with E = d / n.
     d = np.where(vu, alpha_t - abar, 0.0)[:, live] / n_i[live]
-    stat, rank = _pinv_quadratic(d, abar[live])
+    stat, rank = _pinv_quadratic(d, abar[live], x=None if rolling else x[live])
     df = int(live.sum()) - p_cs
     if rank < df:
         notes.append(f"pricing-error covariance has rank {rank} < N - K - 1 = {df} "

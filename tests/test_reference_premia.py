@@ -236,3 +236,30 @@ def test_all_traded_keeps_grs_and_prices_each_by_its_mean(french_data):
     with_cs = fama_macbeth(r, betas, factors=f, traded=FACTORS)
     assert res.grs is not None and res.grs == with_cs.grs
     assert set(res.lambda_route.values()) == {"mean"}
+
+
+@pytest.mark.parametrize("shape", [(200, 12), (12, 40), (40, 40), (60, 8)])
+def test_pricing_error_quadratic_equals_numpy_pinv(shape):
+    """v'(E'E)^+ v by Cholesky solves (N x N when N < T, the T x T Gram with its null vector
+    1 otherwise) equals numpy's pinv(E'E, rcond=1e-10) on deviations from the mean (columns
+    of E sum to zero, as in the Fama-MacBeth pricing-error covariance, Cochrane 2005
+    eq. 12.13), and the rank is numpy's matrix_rank; a rank-deficient E'E takes the
+    eigenvalue route with the same result."""
+    from hedgekit.premia import _pinv_quadratic
+
+    rng = np.random.default_rng(sum(shape))
+    t, n = shape
+    e = rng.standard_normal((t, n)) @ rng.standard_normal((n, n))
+    e -= e.mean(axis=0)
+    v = rng.standard_normal(n)
+    ete = e.T @ e
+    ref = v @ np.linalg.pinv(ete, rcond=1e-10, hermitian=True) @ v
+    stat, rank = _pinv_quadratic(e, v)
+    assert stat == pytest.approx(ref, rel=1e-9)
+    assert rank == np.linalg.matrix_rank(ete, tol=1e-10 * np.linalg.eigvalsh(ete).max(), hermitian=True)
+    if shape == (60, 8):
+        e[:, 3] = e[:, 2] + e[:, 1]                      # exactly collinear: rank N - 1
+        ete = e.T @ e
+        ref = v @ np.linalg.pinv(ete, rcond=1e-10, hermitian=True) @ v
+        stat, rank = _pinv_quadratic(e, v)
+        assert stat == pytest.approx(ref, rel=1e-8) and rank == n - 1
