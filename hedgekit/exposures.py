@@ -10,10 +10,11 @@ each series on its own valid months (unbalanced panels are normal).
   in calendar months: a missing month contributes a zero score, so for a series with only
   leading or trailing gaps the result equals statsmodels on the dropped sample.
 * Rolling betas on windows ending at t (months t-window+1..t), from trailing window
-  means of the cross-products (one running-sum filter along time for all moments), with
-  the factors centred first so the intercept drops out of a K x K system solved by a
-  vectorised Cholesky factorisation across all windows and series at once.  Five-year windows follow Fama
-  and MacBeth 1973 (JPE); a minimum of 36 valid months is common practice.
+  sums of the cross-products (hedgekit.windows), with the factors centred first so the
+  intercept drops out of a K x K system.  Series with no gap inside their history share
+  each window's X'X (one inverse per window, per series only X'y); series with gaps solve
+  their own masked systems by a vectorised Cholesky factorisation.  Five-year windows
+  follow Fama and MacBeth 1973 (JPE); a minimum of 36 valid months is common practice.
 * The book: holdings-based b_p = sum_i w_i b_i (exact for OLS on a common sample) and
   the direct regression of the portfolio's own return series, with their gap.
 """

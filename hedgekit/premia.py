@@ -22,6 +22,16 @@ deficient design are skipped and counted.
   cov(alpha-bar) = sum_t (alpha_t - alpha-bar)(alpha_t - alpha-bar)' / T² (pairwise
   n_i n_j with missing returns; df = rank when there are more assets than months),
   plain and divided by (1 + c).
+* Traded factors (``traded``) are priced by their own mean: gamma_t = f_t, so lambda is the
+  factor's mean over the months used with the plain and Newey-West se of a mean, and the
+  factor joins the test assets (Lewellen, Nagel and Shanken 2010, JFE; Cochrane 2005
+  ch. 12); the cross-section prices the other factors from R_t - B_tr f_tr,t.
+  ``lambda_route`` records which route each factor took.  The pricing-error quadratic form
+  is a Cholesky solve in the N x N or T x T space with the known null space added
+  (see ``_pinv_quadratic``), the eigenvalue route only near rank deficiency.
+* Headline: the Shanken se where available for every price (full betas with factors),
+  else Newey-West (``headline_se``); annual figures, intervals at ``confidence``, p-values
+  and marks from hedgekit.inference.
 * GRS (Gibbons, Ross and Shanken 1989, Econometrica) when every factor is traded:
   (T/N)((T-N-K)/(T-K-1)) alpha' Sigma^{-1} alpha / (1 + mu' Omega^{-1} mu) ~ F(N, T-N-K),
   Sigma with divisor T-K-1 and Omega with divisor T (this equals Cochrane 2005 eq. 12.6
