@@ -226,8 +226,18 @@ def _scaled_residuals(y: np.ndarray, b: np.ndarray, f: np.ndarray) -> np.ndarray
     return e / np.sqrt(n_i)
 
 
+def _known_null(e: np.ndarray, cand: np.ndarray | None) -> np.ndarray | None:
+    """An orthonormal basis of span(cand) when e @ cand vanishes to round-off, else None."""
+    if cand is None or cand.shape[1] >= min(e.shape):
+        return None
+    scale = np.abs(e).max() * np.abs(cand).sum(axis=0).max()
+    if np.abs(e @ cand).max() <= 1e-12 * scale:
+        return np.linalg.qr(cand)[0]
+    return None
+
+
 def _pinv_quadratic(e: np.ndarray, v: np.ndarray, rtol: float = 1e-10,
-                    x: np.ndarray | None = None) -> tuple[float, int]:
+                    x: np.ndarray | None = None, f: np.ndarray | None = None) -> tuple[float, int]:
     """v' (E'E)^+ v and the rank of E'E, from a Cholesky solve in the smaller space.
 
     E (T x N) has columns that sum to zero over time (deviations from each asset's mean),
@@ -239,7 +249,9 @@ def _pinv_quadratic(e: np.ndarray, v: np.ndarray, rtol: float = 1e-10,
 
     * N < T: A = E'E (N x N), Z = the columns of X when E X = 0 (to round-off), else none;
       v'A^+ v = |L^{-1} v|², L the Cholesky factor of A + s Z Z'.
-    * N >= T: A = E E' (T x T), Z = 1/sqrt(T); v'(E'E)^+ v = |A^+ E v|².
+    * N >= T: A = E E' (T x T), Z = 1/sqrt(T), or the span of [1, f] (T x (K+1)) when
+      E'[1, f] = 0 (full-sample time-series residuals are orthogonal to the factors);
+      v'(E'E)^+ v = |A^+ E v|².
 
     Forming the Gram costs O(T N min(N, T)) and the solve O(min(N, T)³): no
     eigendecomposition.  When the Cholesky factorisation fails or LAPACK's reciprocal
@@ -252,22 +264,18 @@ def _pinv_quadratic(e: np.ndarray, v: np.ndarray, rtol: float = 1e-10,
     t, n = e.shape
     if n < t:
         gram, rhs = e.T @ e, v
-        null = None
-        if x is not None and x.shape[1] < n:
-            scale = np.abs(e).max() * np.abs(x).sum(axis=0).max()
-            if np.abs(e @ x).max() <= 1e-12 * scale:
-                null = np.linalg.qr(x)[0]
-        rank = n
-        if null is not None:
-            rhs = rhs - null @ (null.T @ rhs)
-            gram = gram + (np.trace(gram) / n) * (null @ null.T)
-            rank = n - null.shape[1]
+        null = _known_null(e, x)
     else:
-        gram = e @ e.T
-        rhs = e @ v
-        rhs = rhs - rhs.mean()            # exactly orthogonal to 1 (round-off only)
-        gram = gram + np.trace(gram) / t / t   # + s u u' with u = 1/sqrt(T), s = trace/T
-        rank = t - 1
+        gram, rhs = e @ e.T, e @ v
+        null = _known_null(e.T, None if f is None else np.column_stack([np.ones(t), f]))
+        if null is None:
+            null = np.full((t, 1), 1.0 / np.sqrt(t))
+    size = gram.shape[0]
+    rank = size
+    if null is not None:
+        rhs = rhs - null @ (null.T @ rhs)      # in the range exactly (round-off only)
+        gram = gram + (np.trace(gram) / size) * (null @ null.T)
+        rank = size - null.shape[1]
     anorm = np.abs(gram).sum(axis=0).max()
     chol, info = lapack.dpotrf(gram, lower=1, clean=1)
     if info == 0:
@@ -508,7 +516,9 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
     r2_cs = float(1.0 - np.var(abar[live]) / np.var(rbar[live]))
     # cov(alpha-bar)_ij = sum_t d_ti d_tj / (n_i n_j) = (E'E)_ij with E = d / n.
     d = np.where(vu, alpha_t - abar, 0.0)[:, live] / n_i[live]
-    stat, rank = _pinv_quadratic(d, abar[live], x=None if rolling else x[live])
+    stat, rank = _pinv_quadratic(
+        d, abar[live], x=None if rolling else x[live],
+        f=None if (rolling or fac is None) else fac.loc[dates[used]].to_numpy(dtype=float))
     df = int(live.sum()) - p_cs
     if rank < df:
         notes.append(f"pricing-error covariance has rank {rank} < N - K - 1 = {df} "

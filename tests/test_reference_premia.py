@@ -263,3 +263,27 @@ def test_pricing_error_quadratic_equals_numpy_pinv(shape):
         ref = v @ np.linalg.pinv(ete, rcond=1e-10, hermitian=True) @ v
         stat, rank = _pinv_quadratic(e, v)
         assert stat == pytest.approx(ref, rel=1e-8) and rank == n - 1
+
+
+@pytest.mark.parametrize("months", [15, 120])
+def test_pricing_error_test_balanced_short_and_long_panels(french_data, months):
+    """Balanced panel with betas on the same months: the pricing-error covariance
+    sum (alpha_t - alpha-bar)(alpha_t - alpha-bar)'/T^2 (Cochrane 2005 eq. 12.13) is
+    singular along the design X (N x N, long panel) and along [1, f] over time (short
+    panel, fewer months than assets); the statistic and rank equal numpy's pinv and
+    matrix_rank computed here."""
+    r, f = french_data
+    r, f = r.iloc[-months:], f.iloc[-months:]
+    betas = time_series_betas(r, f).betas
+    res = fama_macbeth(r, betas, factors=f, nw_lags=0)
+    rv = r.to_numpy()
+    t, n = rv.shape
+    x = np.column_stack([np.ones(n), betas.to_numpy()])
+    alpha_t = rv - rv @ (x @ np.linalg.solve(x.T @ x, x.T)).T
+    abar = alpha_t.mean(axis=0)
+    cov_a = (alpha_t - abar).T @ (alpha_t - abar) / t ** 2
+    w = np.linalg.eigvalsh(cov_a)
+    rank = int((w > 1e-10 * w.max()).sum())
+    stat = abar @ np.linalg.pinv(cov_a, rcond=1e-10, hermitian=True) @ abar
+    assert res.pricing_error_test["stat"] == pytest.approx(stat, rel=1e-9)
+    assert res.pricing_error_test["df"] == min(rank, n - x.shape[1])
