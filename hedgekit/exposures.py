@@ -10,10 +10,11 @@ each series on its own valid months (unbalanced panels are normal).
   in calendar months: a missing month contributes a zero score, so for a series with only
   leading or trailing gaps the result equals statsmodels on the dropped sample.
 * Rolling betas on windows ending at t (months t-window+1..t), from trailing window
-  means of the cross-products (one running-sum filter along time for all moments), with
-  the factors centred first so the intercept drops out of a K x K system solved by a
-  vectorised Cholesky factorisation across all windows and series at once.  Five-year windows follow Fama
-  and MacBeth 1973 (JPE); a minimum of 36 valid months is common practice.
+  sums of the cross-products (hedgekit.windows), with the factors centred first so the
+  intercept drops out of a K x K system.  Series with no gap inside their history share
+  each window's X'X (one inverse per window, per series only X'y); series with gaps solve
+  their own masked systems by a vectorised Cholesky factorisation.  Five-year windows
+  follow Fama and MacBeth 1973 (JPE); a minimum of 36 valid months is common practice.
 * The book: holdings-based b_p = sum_i w_i b_i (exact for OLS on a common sample) and
   the direct regression of the portfolio's own return series, with their gap.
 """
@@ -31,7 +32,7 @@ from . import inference
 from .errors import InputError
 from .jsonable import jsonable
 from .linalg import newey_west_lags, resolve_lags, spd_solve
-from .windows import sample_dict, window_moments
+from .windows import sample_dict, window_moments, window_sums
 
 __all__ = [
     "BetaEstimates",
@@ -47,11 +48,17 @@ __all__ = [
     "time_series_betas",
 ]
 
-# Series per block in the rolling computation: the block's moments (T x CHUNK x Q floats,
-# Q = 27 with five factors, 4 MB for 600 months) stay in cache, and memory is bounded
-# whatever N is.
-_CHUNK = 64
+# Rolling betas work on blocks of series whose moments (T x block x Q floats) fit in about
+# this many bytes, so a block stays in cache whatever T is and memory is bounded whatever
+# N is (at T = 6,300 a block of 64 series falls out of cache and the cost per cell doubles).
+_BLOCK_BYTES = 2 << 20
 _THREADS = min(2, os.cpu_count() or 1)
+
+
+def _block_size(t: int, q: int) -> int:
+    """Series per block for T periods and Q moments per series: within _BLOCK_BYTES,
+    between 8 and 256."""
+    return int(min(256, max(8, _BLOCK_BYTES // (8 * max(t, 1) * q))))
 
 
 # --------------------------------------------------------------------------- helpers
@@ -356,10 +363,12 @@ def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int, *,
     (the intercept partialled out, Frisch-Waugh-Lovell), solved by a batched Cholesky.
     """
     k = fc.shape[1]
-    mom = window_moments(fc, y, mask=np.isfinite(y), window=window)
+    # Moments per row of the window (sums / window): the slopes are unchanged.
+    mom = window_moments(fc, y, mask=np.isfinite(y), window=window, per_row=True)
+    w = min(window, len(fc))
     # (n, T) views, contiguous along time in the moments' own buffer, centred in place.
     with np.errstate(invalid="ignore", divide="ignore"):
-        inv_n = 1.0 / mom.count.T
+        inv_n = w / mom.count.T
         s_f = [mom.sx[..., j].T for j in range(k)]
         mean_f = [sf * inv_n for sf in s_f]
         # Uncentred second moments: the yardstick for a pivot lost to cancellation.
@@ -381,15 +390,100 @@ def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int, *,
     out[counts < max(min_obs, k + 2)] = np.nan
 
 
+@dataclass(frozen=True)
+class _SharedDesign:
+    """The window moments of the centred factors, common to every series with no gap in
+    the window: counts (T,), means (T, K), the inverse of the centred X'X (T, K, K) (NaN
+    where a window's design is singular), and the factors' running sums for other ranges."""
+
+    count: np.ndarray
+    mean: np.ndarray
+    inverse: np.ndarray
+    fc: np.ndarray
+
+
+def _shared_design(fc: np.ndarray, window: int) -> _SharedDesign:
+    t, k = fc.shape
+    mom = window_moments(fc, window=window)
+    n_t = mom.count.astype(float)
+    mean = mom.sx / n_t[:, None]
+    inv = np.empty((t, k, k))
+    for col in range(k):   # K solves of the K x K systems of every window at once
+        a = [[mom.xx(i, j) - mom.sx[:, i] * mean[:, j] if j <= i else None for j in range(k)]
+             for i in range(k)]
+        rhs = [np.full(t, float(i == col)) for i in range(k)]
+        x = spd_solve(a, rhs, [mom.xx(j, j) for j in range(k)])
+        inv[:, :, col] = np.stack(x, axis=-1)
+    return _SharedDesign(mom.count, mean, inv, fc)
+
+
+def _shared_block(y: np.ndarray, design: _SharedDesign, window: int, need: int, *,
+                  out: np.ndarray, counts: np.ndarray) -> None:
+    """Rolling betas of series whose valid months are one unbroken run (no gap between
+    the first and the last valid month): every window holds one contiguous range of rows.
+
+    Only X'y is per series: the window sums of y and y f (:func:`window_sums`).  Windows
+    with all rows valid use the shared inverse, b = (X'X)^{-1}(S_fy - f̄ S_y); the others
+    (the first months after a listing or the last before a delisting) take the factors'
+    sums over their own range and one batched K x K solve.  ``out`` (n, T, K).
+    """
+    fc = design.fc
+    t, k = fc.shape
+    mask = np.isfinite(y)
+    yt = np.where(mask, y, 0.0).T                          # (n, T)
+    n = yt.shape[0]
+    mom = np.empty((n, k + 2, t))
+    mom[:, 0] = mask.T
+    mom[:, 1] = yt
+    np.multiply(yt[:, None, :], fc.T[None], out=mom[:, 2:])
+    window_sums(mom, window, axis=2, overwrite=True)
+    cnt = np.rint(mom[:, 0]).astype(np.int64)
+    counts[:] = cnt
+    s_y = mom[:, 1]
+    c = mom[:, 2:]                                         # (n, K, T): S_fy - f̄ S_y
+    c -= design.mean.T[None] * s_y[:, None, :]
+    inv = design.inverse
+    for i in range(k):                                     # one batched multiply
+        acc = inv[None, :, i, 0] * c[:, 0]
+        for j in range(1, k):
+            acc += inv[None, :, i, j] * c[:, j]
+        out[:, :, i] = acc
+    full = cnt == design.count[None, :]
+    part_i, part_t = np.nonzero(~full & (cnt >= need))
+    if part_i.size:
+        # Contiguous valid rows: [max(t-w+1, first), min(t, last)].
+        first = np.argmax(mask, axis=0)
+        last = t - 1 - np.argmax(mask[::-1], axis=0)
+        starts = np.maximum(part_t - window + 1, first[part_i])
+        ends = np.minimum(part_t, last[part_i]) + 1
+        pm = window_moments(fc, starts=starts, ends=ends)
+        inv_n = 1.0 / pm.count
+        mean = pm.sx * inv_n[:, None]
+        a = [[pm.xx(i, j) - pm.sx[:, i] * mean[:, j] if j <= i else None for j in range(k)]
+             for i in range(k)]
+        sy = s_y[part_i, part_t]
+        rhs = [c[part_i, j, part_t] + (design.mean[part_t, j] - mean[:, j]) * sy for j in range(k)]
+        x = spd_solve(a, rhs, [pm.xx(j, j) for j in range(k)])
+        out[part_i, part_t] = np.stack(x, axis=-1)
+    out[cnt < need] = np.nan
+
+
 def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
                   window: int = 60, min_obs: int = 36) -> RollingBetas:
     """Rolling OLS slopes of each series on [1, f] over windows ending at each month.
 
     Each series and window uses its own valid months; NaN with fewer than ``min_obs``
-    (and never fewer than K+2).  Vectorised over series and windows (running window sums
-    of cross-products, a batched Cholesky solve); series are processed in blocks of 64,
-    on two threads, so memory stays bounded and the blocks stay in cache.  The first
-    rows (t < window-1) use the months available so far when there are ``min_obs``.
+    (and never fewer than K+2).  The first rows (t < window-1) use the months available
+    so far when there are ``min_obs``.  Vectorised over series and windows from running
+    window sums (:mod:`hedgekit.windows`):
+
+    * series whose valid months form one unbroken run (a balanced panel, or listings and
+      delistings only) share each window's X'X: one K x K inverse per window for all of
+      them, per series only X'y (the windows cut by a listing solve their own range);
+    * series with gaps inside their history take the per-series path: masked moments of
+      every window and a batched Cholesky solve.
+
+    Series go in blocks sized from T to stay in cache, on two threads.
     """
     if isinstance(window, bool) or not isinstance(window, int | np.integer) or window < 2:
         raise InputError(f"window must be an integer of at least 2 months, not {window!r}.",
@@ -403,27 +497,47 @@ def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
     dates, y, f, names, fnames = _align(returns, factors)
     t, n = y.shape
     k = f.shape[1]
+    window, min_obs = int(window), int(min_obs)
+    need = max(min_obs, k + 2)
     fc = f - f.mean(axis=0)
-    # Series-major storage so each block writes one contiguous slab; exposed as (T, N, K).
+    valid = np.isfinite(y)
+    n_valid = valid.sum(axis=0)
+    span = t - np.argmax(valid[::-1], axis=0) - np.argmax(valid, axis=0)
+    unbroken = np.flatnonzero(n_valid == span)
+    gapped = np.flatnonzero(n_valid != span)
+    design = _shared_design(fc, window) if unbroken.size else None
+    # Series-major storage so each block writes one slab; exposed as (T, N, K).
     store = np.empty((n, t, k))
     counts_store = np.empty((n, t), dtype=np.int64)
 
-    def run(start: int) -> None:
-        stop = min(start + _CHUNK, n)
-        _rolling_block(y[:, start:stop], fc, int(window), int(min_obs),
-                       out=store[start:stop], counts=counts_store[start:stop])
+    def run(cols: np.ndarray, shared: bool) -> None:
+        # A run of neighbouring series is written in place; others gathered and scattered.
+        run_of = cols[-1] - cols[0] + 1 == len(cols)
+        sel = slice(cols[0], cols[-1] + 1) if run_of else cols
+        out = store[sel] if run_of else np.empty((len(cols), t, k))
+        cnt = counts_store[sel] if run_of else np.empty((len(cols), t), dtype=np.int64)
+        if shared:
+            _shared_block(y[:, sel], design, window, need, out=out, counts=cnt)
+        else:
+            _rolling_block(y[:, sel], fc, window, min_obs, out=out, counts=cnt)
+        if not run_of:
+            store[cols] = out
+            counts_store[cols] = cnt
 
-    # Blocks of series bound the memory and stay in cache; numpy releases the GIL inside
-    # each block, so two threads use two cores.  Results do not depend on the threading.
-    starts = range(0, n, _CHUNK)
-    if len(starts) >= 4 and _THREADS > 1:
+    jobs = []
+    for cols, shared, q in ((unbroken, True, k + 2), (gapped, False, 3 + 2 * k + k * (k + 1) // 2)):
+        size = _block_size(t, q)
+        jobs += [(cols[i:i + size], shared) for i in range(0, len(cols), size)]
+    # numpy releases the GIL inside each block, so two threads use two cores.  Results do
+    # not depend on the threading or the block size.
+    if len(jobs) >= 4 and _THREADS > 1:
         with ThreadPoolExecutor(max_workers=_THREADS) as pool:
-            list(pool.map(run, starts))
+            list(pool.map(lambda job: run(*job), jobs))
     else:
-        for start in starts:
-            run(start)
+        for job in jobs:
+            run(*job)
     return RollingBetas(store.transpose(1, 0, 2), dates, tuple(names), tuple(fnames), counts_store.T,
-                        int(window), int(min_obs))
+                        window, min_obs)
 
 
 # --------------------------------------------------------------------------- the book

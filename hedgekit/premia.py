@@ -22,6 +22,16 @@ deficient design are skipped and counted.
   cov(alpha-bar) = sum_t (alpha_t - alpha-bar)(alpha_t - alpha-bar)' / T² (pairwise
   n_i n_j with missing returns; df = rank when there are more assets than months),
   plain and divided by (1 + c).
+* Traded factors (``traded``) are priced by their own mean: gamma_t = f_t, so lambda is the
+  factor's mean over the months used with the plain and Newey-West se of a mean, and the
+  factor joins the test assets (Lewellen, Nagel and Shanken 2010, JFE; Cochrane 2005
+  ch. 12); the cross-section prices the other factors from R_t - B_tr f_tr,t.
+  ``lambda_route`` records which route each factor took.  The pricing-error quadratic form
+  is a Cholesky solve in the N x N or T x T space with the known null space added
+  (see ``_pinv_quadratic``), the eigenvalue route only near rank deficiency.
+* Headline: the Shanken se where available for every price (full betas with factors),
+  else Newey-West (``headline_se``); annual figures, intervals at ``confidence``, p-values
+  and marks from hedgekit.inference.
 * GRS (Gibbons, Ross and Shanken 1989, Econometrica) when every factor is traded:
   (T/N)((T-N-K)/(T-K-1)) alpha' Sigma^{-1} alpha / (1 + mu' Omega^{-1} mu) ~ F(N, T-N-K),
   Sigma with divisor T-K-1 and Omega with divisor T (this equals Cochrane 2005 eq. 12.6
@@ -80,6 +90,7 @@ class PremiaResult:
     periods_per_year: int = 12
     confidence: float = inference.DEFAULT_CONFIDENCE
     book_premia: pd.DataFrame | None = field(default=None, repr=False)
+    lambda_route: dict = field(default_factory=dict)
 
     @property
     def headline_se(self) -> str:
@@ -148,6 +159,7 @@ class PremiaResult:
     def to_dict(self) -> dict:
         book, book_total = self._book_dict()
         return {
+            "lambda_route": dict(self.lambda_route),
             "headline_se": self.headline_se,
             "lambda_annual": series_dict(self.lambda_annual),
             "lambda_annual_se": series_dict(self.lambda_annual_se),
@@ -214,12 +226,77 @@ def _scaled_residuals(y: np.ndarray, b: np.ndarray, f: np.ndarray) -> np.ndarray
     return e / np.sqrt(n_i)
 
 
-def _pinv_quadratic(e: np.ndarray, v: np.ndarray, rtol: float = 1e-10) -> tuple[float, int]:
-    """v' (E'E)^+ v and the rank of E'E, from the smaller Gram matrix of E (T x N).
+def _known_null(e: np.ndarray, cand: np.ndarray | None) -> np.ndarray | None:
+    """An orthonormal basis of span(cand) when e @ cand vanishes to round-off, else None."""
+    if cand is None or cand.shape[1] >= min(e.shape):
+        return None
+    scale = np.abs(e).max() * np.abs(cand).sum(axis=0).max()
+    if np.abs(e @ cand).max() <= 1e-12 * scale:
+        return np.linalg.qr(cand)[0]
+    return None
 
-    Eigenvalues below rtol times the largest are treated as zero (as numpy's pinv
-    with rcond=rtol on E'E).
+
+def _pinv_quadratic(e: np.ndarray, v: np.ndarray, rtol: float = 1e-10,
+                    x: np.ndarray | None = None, f: np.ndarray | None = None) -> tuple[float, int]:
+    """v' (E'E)^+ v and the rank of E'E, from a Cholesky solve in the smaller space.
+
+    E (T x N) has columns that sum to zero over time (deviations from each asset's mean),
+    so 1'E = 0; with full-sample betas and every return observed, each row is also a
+    cross-sectional residual, so E X = 0 for the design X (N x P) and v = alpha-bar is
+    orthogonal to X.  A known null space Z (orthonormal) of the Gram with v (or E v) in
+    its range gives the pseudo-inverse by a full-rank solve: for any s > 0,
+    A^+ r = (A + s Z Z')^{-1} r for r in the range of A.  So:
+
+    * N < T: A = E'E (N x N), Z = the columns of X when E X = 0 (to round-off), else none;
+      v'A^+ v = |L^{-1} v|², L the Cholesky factor of A + s Z Z'.
+    * N >= T: A = E E' (T x T), Z = 1/sqrt(T), or the span of [1, f] (T x (K+1)) when
+      E'[1, f] = 0 (full-sample time-series residuals are orthogonal to the factors);
+      v'(E'E)^+ v = |A^+ E v|².
+
+    Forming the Gram costs O(T N min(N, T)) and the solve O(min(N, T)³): no
+    eigendecomposition.  When the Cholesky factorisation fails or LAPACK's reciprocal
+    condition estimate is below 1e-7 (where the routes could differ beyond 1e-10), the eigenvalue route is used
+    instead: eigenvalues below rtol times the largest are zero (numpy's pinv with
+    rcond=rtol on E'E).
     """
+    from scipy.linalg import cho_solve, lapack
+
+    t, n = e.shape
+    if n < t:
+        gram, rhs = e.T @ e, v
+        null = _known_null(e, x)
+    else:
+        gram, rhs = e @ e.T, e @ v
+        null = _known_null(e.T, None if f is None else np.column_stack([np.ones(t), f]))
+        if null is None:
+            null = np.full((t, 1), 1.0 / np.sqrt(t))
+    size = gram.shape[0]
+    rank = size
+    if null is not None:
+        rhs = rhs - null @ (null.T @ rhs)      # in the range exactly (round-off only)
+        gram = gram + (np.trace(gram) / size) * (null @ null.T)
+        rank = size - null.shape[1]
+    anorm = np.abs(gram).sum(axis=0).max()
+    chol, info = lapack.dpotrf(gram, lower=1, clean=1)
+    if info == 0:
+        rcond, info_c = lapack.dpocon(chol, anorm, uplo="L")
+        if info_c == 0 and rcond > 1e-7:
+            if n < t:
+                z = _lower_solve(chol, rhs)
+                return float(z @ z), int(rank)
+            w = cho_solve((chol, True), rhs)
+            return float(w @ w), int(rank)
+    return _pinv_quadratic_eigen(e, v, rtol)
+
+
+def _lower_solve(low: np.ndarray, b: np.ndarray) -> np.ndarray:
+    from scipy.linalg import solve_triangular
+    return solve_triangular(low, b, lower=True, check_finite=False)
+
+
+def _pinv_quadratic_eigen(e: np.ndarray, v: np.ndarray, rtol: float) -> tuple[float, int]:
+    """v' (E'E)^+ v by the eigendecomposition of the smaller Gram matrix of E (T x N):
+    the fallback for (near) rank-deficient systems."""
     t, n = e.shape
     if n <= t:
         w, u = np.linalg.eigh(e.T @ e)
@@ -337,20 +414,51 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
         dates = dates[keep]
     dates = pd.PeriodIndex(dates, name="date")
     y = ret.loc[dates, assets].to_numpy(dtype=float)
-    t_all, n = y.shape
+    n_orig = y.shape[1]
     p = k + int(intercept)
     names = ([CONST] if intercept else []) + fnames
 
-    # Cross-sections, batched over months.
+    # Traded factors price themselves: lambda = their mean, gamma_t = f_t, and they join
+    # the test assets with unit betas on themselves (Lewellen, Nagel and Shanken 2010, JFE;
+    # Cochrane 2005 ch. 12).  The cross-section prices the rest of R_t - B_tr f_tr,t.
+    traded_set = {str(t) for t in (traded or ())}
+    unknown = sorted(traded_set - set(fnames))
+    if unknown:
+        raise InputError(f"traded names '{unknown[0]}', which is not a factor of the betas.",
+                         column="traded", fix=f"Use factors among: {', '.join(fnames)}.")
+    tr = [j for j, f in enumerate(fnames) if f in traded_set]
+    if tr and fac is None:
+        notes.append("traded factors need the factor series: priced by the cross-section instead.")
+        tr = []
+    nt = [j for j in range(k) if j not in tr]
+    cs_cols = ([0] if intercept else []) + [int(intercept) + j for j in nt]
+    tr_cols = [int(intercept) + j for j in tr]
+    p_cs = len(cs_cols)
+    route = {f: ("mean" if j in tr else "cross-section") for j, f in enumerate(fnames)}
+    f_tr = fac.loc[dates].to_numpy(dtype=float)[:, tr] if tr else np.zeros((len(dates), 0))
+    if tr:
+        unit = np.eye(k)[tr]
+        y = np.column_stack([y, f_tr])
+        assets = assets + [f"factor:{fnames[j]}" for j in tr]
+        if rolling:
+            bvals = np.concatenate([bvals, np.broadcast_to(unit, (len(dates), len(tr), k))], axis=1)
+        else:
+            bframe = pd.concat([bframe, pd.DataFrame(unit, index=assets[n_orig:], columns=bframe.columns)])
+    t_all, n = y.shape
+
+    # Cross-sections, batched over months, on [1, B_nt] with y - B_tr f_tr,t.
     if rolling:
         valid = np.isfinite(y) & np.isfinite(bvals).all(axis=2)
         bm = np.where(valid[..., None], bvals, 0.0)
         y0 = np.where(valid, y, 0.0)
-        btb = np.matmul(bm.transpose(0, 2, 1), bm)
-        bty = np.einsum("tnk,tn->tk", bm, y0)
+        if tr:
+            y0 = y0 - np.einsum("tnk,tk->tn", bm[..., tr], f_tr)
+        b_cs = bm[..., nt]
+        btb = np.matmul(b_cs.transpose(0, 2, 1), b_cs)
+        bty = np.einsum("tnk,tn->tk", b_cs, y0)
         if intercept:
-            s_b = bm.sum(axis=1)
-            xtx = np.empty((t_all, p, p))
+            s_b = b_cs.sum(axis=1)
+            xtx = np.empty((t_all, p_cs, p_cs))
             xtx[:, 0, 0] = valid.sum(axis=1)
             xtx[:, 0, 1:] = xtx[:, 1:, 0] = s_b
             xtx[:, 1:, 1:] = btb
@@ -360,21 +468,27 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
     else:
         bmat = bframe.to_numpy()
         x = np.column_stack([np.ones(n), bmat]) if intercept else bmat
+        x_cs = x[:, cs_cols]
         valid = np.isfinite(y)
         y0 = np.where(valid, y, 0.0)
-        outer = np.einsum("nk,nl->nkl", x, x).reshape(n, p * p)
-        xtx = (valid.astype(float) @ outer).reshape(t_all, p, p)
-        xty = y0 @ x
+        if tr:
+            y0 = y0 - np.where(valid, f_tr @ bmat[:, tr].T, 0.0)
+        outer = np.einsum("nk,nl->nkl", x_cs, x_cs).reshape(n, p_cs * p_cs)
+        xtx = (valid.astype(float) @ outer).reshape(t_all, p_cs, p_cs)
+        xty = y0 @ x_cs
     count = valid.sum(axis=1)
     used = count >= k + 2
-    if used.any():
+    if used.any() and p_cs:
         used[used] &= _full_rank(xtx[used])
     n_skipped = int((~used).sum())
     t_used = int(used.sum())
     if t_used < 2:
         raise InputError(f"only {t_used} month(s) have {k + 2} or more assets with returns and betas.",
                          file="assets", fix="Supply more test assets or a longer history.")
-    gamma = np.linalg.solve(xtx[used], xty[used][..., None])[..., 0]
+    gamma = np.empty((t_used, p))
+    if p_cs:
+        gamma[:, cs_cols] = np.linalg.solve(xtx[used], xty[used][..., None])[..., 0]
+    gamma[:, tr_cols] = f_tr[used]
     lam = gamma.mean(axis=0)
     dev = gamma - lam
     cov_fm = dev.T @ dev / (t_used - 1) / t_used
@@ -402,8 +516,10 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
     r2_cs = float(1.0 - np.var(abar[live]) / np.var(rbar[live]))
     # cov(alpha-bar)_ij = sum_t d_ti d_tj / (n_i n_j) = (E'E)_ij with E = d / n.
     d = np.where(vu, alpha_t - abar, 0.0)[:, live] / n_i[live]
-    stat, rank = _pinv_quadratic(d, abar[live])
-    df = int(live.sum()) - p
+    stat, rank = _pinv_quadratic(
+        d, abar[live], x=None if rolling else x[live],
+        f=None if (rolling or fac is None) else fac.loc[dates[used]].to_numpy(dtype=float))
+    df = int(live.sum()) - p_cs
     if rank < df:
         notes.append(f"pricing-error covariance has rank {rank} < N - K - 1 = {df} "
                      "(more assets than months): the test uses df = rank.")
@@ -423,19 +539,26 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
         if rolling:
             cov_sh = (1.0 + c) * (cov_fm - tilde / t_used) + tilde / t_used
         else:
-            xtx_inv = np.linalg.inv(x.T @ x)
-            if resid_cov is not None:
-                sig = pd.DataFrame(resid_cov).astype(float)
-                sig.index, sig.columns = sig.index.map(str), sig.columns.map(str)
-                try:
-                    sig = sig.loc[assets, assets].to_numpy()
-                except KeyError as exc:
-                    raise InputError("resid_cov does not cover every asset.", column="resid_cov",
-                                     fix="Pass the residual covariance of the same assets.") from exc
-                sandwich = xtx_inv @ x.T @ sig @ x @ xtx_inv
-            else:
-                ex = _scaled_residuals(y, bmat, fac.loc[dates].to_numpy(dtype=float)) @ x
-                sandwich = xtx_inv @ (ex.T @ ex) @ xtx_inv
+            # Cross-sectional (errors-in-variables) part for the cross-section's parameters
+            # only: a traded factor's gamma_t = f_t carries none (its variance is Sigma_f/T).
+            sandwich = np.zeros((p, p))
+            if p_cs:
+                xtx_inv = np.linalg.inv(x_cs.T @ x_cs)
+                if resid_cov is not None:
+                    sig = pd.DataFrame(resid_cov).astype(float)
+                    sig.index, sig.columns = sig.index.map(str), sig.columns.map(str)
+                    try:
+                        sig = sig.loc[assets[:n_orig], assets[:n_orig]].to_numpy()
+                    except KeyError as exc:
+                        raise InputError("resid_cov does not cover every asset.", column="resid_cov",
+                                         fix="Pass the residual covariance of the same assets.") from exc
+                    # traded factors as test assets have no residual
+                    sig = np.pad(sig, (0, n - n_orig))
+                    part = xtx_inv @ x_cs.T @ sig @ x_cs @ xtx_inv
+                else:
+                    ex = _scaled_residuals(y, bmat, fac.loc[dates].to_numpy(dtype=float)) @ x_cs
+                    part = xtx_inv @ (ex.T @ ex) @ xtx_inv
+                sandwich[np.ix_(cs_cols, cs_cols)] = part
             cov_sh = (sandwich * (1.0 + c) + tilde) / t_used
     else:
         notes.append("no factors given: Shanken errors and GRS not computed.")
@@ -443,9 +566,8 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
 
     grs = None
     if traded is not None:
-        traded_set = {str(t) for t in traded}
         if set(fnames) <= traded_set and fac is not None:
-            grs = _grs(y, fac.loc[dates].to_numpy(dtype=float))
+            grs = _grs(y[:, :n_orig], fac.loc[dates].to_numpy(dtype=float))
             if grs is None:
                 notes.append("GRS not computed: too few months with every asset observed.")
         elif not set(fnames) <= traded_set:
@@ -473,7 +595,8 @@ def fama_macbeth(returns: pd.DataFrame, betas: pd.DataFrame | RollingBetas, *,
         cov_fm=pd.DataFrame(cov_fm, index=idx, columns=idx),
         cov_nw=pd.DataFrame(cov_nw, index=idx, columns=idx),
         cov_shanken=pd.DataFrame(cov_sh, index=idx, columns=idx),
-        shanken_c=c, n_assets=int(live.sum()), intercept=bool(intercept), warnings=tuple(notes),
+        shanken_c=c, n_assets=int(live[:n_orig].sum()), intercept=bool(intercept), warnings=tuple(notes),
+        lambda_route=route,
         periods_per_year=int(periods_per_year), confidence=float(confidence))
     if book_betas is not None:
         res = replace(res, book_premia=book_premium(book_betas, res, book_se=book_se,

@@ -65,7 +65,7 @@ def _check_window(window: int) -> None:
 
 def window_sums(a: np.ndarray, window: int | None = None, *,
                 starts: np.ndarray | None = None, ends: np.ndarray | None = None,
-                axis: int = 0, overwrite: bool = False) -> np.ndarray:
+                axis: int = 0, overwrite: bool = False, per_row: bool = False) -> np.ndarray:
     """Sums of ``a`` along ``axis`` over a window for every date.
 
     * ``window=None`` and no ranges: expanding sums, ``out[t] = a[0] + ... + a[t]``.
@@ -81,7 +81,9 @@ def window_sums(a: np.ndarray, window: int | None = None, *,
     pass (``scipy.ndimage.uniform_filter1d`` shifted to end at each row), which differs
     from the differences only by round-off.  Every route is causal: a row's sum never
     depends on a later row, to the bit.  ``overwrite=True`` lets that running pass reuse
-    ``a``'s memory (a float64 array).
+    ``a``'s memory (a float64 array).  ``per_row=True`` (trailing windows only) returns the
+    sums divided by the window length ``window`` (a running mean with zeros before the
+    first row), saving a pass where only ratios of sums matter (regression slopes).
     """
     a = np.asarray(a, dtype=float)
     if starts is not None or ends is not None:
@@ -96,15 +98,18 @@ def window_sums(a: np.ndarray, window: int | None = None, *,
         en = np.asarray(ends, dtype=np.int64)
         return np.moveaxis(c[en] - c[st], 0, axis)
     if window is None:
+        if per_row:
+            raise ValueError("per_row needs a trailing window.")
         return np.cumsum(a, axis=axis)
     _check_window(window)
     w = min(int(window), a.shape[axis])
     if axis % a.ndim != a.ndim - 1 or a.ndim == 1:
         c = np.cumsum(a, axis=axis)
-        if w == a.shape[axis]:
-            return c
-        moved = np.moveaxis(c, axis, 0)
-        moved[w:] = moved[w:] - moved[:-w]   # a temporary: the right side reads old values
+        if w < a.shape[axis]:
+            moved = np.moveaxis(c, axis, 0)
+            moved[w:] = moved[w:] - moved[:-w]   # a temporary: the right side reads old values
+        if per_row:
+            c /= w
         return c
     from scipy.ndimage import uniform_filter1d  # 0.1 s to import: only when needed
 
@@ -112,7 +117,8 @@ def window_sums(a: np.ndarray, window: int | None = None, *,
     # so the window ends at the row, with zeros before the first row; times w for sums.
     out = uniform_filter1d(a, size=w, axis=axis, mode="constant", cval=0.0,
                            origin=(w - 1) // 2, output=a if overwrite else None)
-    out *= w
+    if not per_row:
+        out *= w
     return out
 
 
@@ -172,7 +178,7 @@ class WindowMoments:
 def window_moments(x: np.ndarray, y: np.ndarray | None = None, *,
                    mask: np.ndarray | None = None, window: int | None = None,
                    starts: np.ndarray | None = None, ends: np.ndarray | None = None,
-                   cross: bool = True) -> WindowMoments:
+                   cross: bool = True, per_row: bool = False) -> WindowMoments:
     """Masked window sums of x, y and their cross-products for every window.
 
     Parameters
@@ -185,6 +191,9 @@ def window_moments(x: np.ndarray, y: np.ndarray | None = None, *,
     window, starts, ends : the windows, as in :func:`window_sums` (expanding by default).
     cross : False skips ``sxx`` and ``syy`` (the counts, sums and ``sxy`` remain); useful
         when X'X is formed elsewhere.
+    per_row : with a trailing ``window`` and a series mask, every moment but ``count``
+        is divided by the window length (see :func:`window_sums`); slopes, centred
+        moments over counts and ratios are unchanged, one pass is saved.
 
     Returns
     -------
@@ -219,14 +228,15 @@ def window_moments(x: np.ndarray, y: np.ndarray | None = None, *,
     m = np.asarray(mask, dtype=bool)
     if yv is None or m.shape != yv.shape or m.shape[0] != t:
         raise ValueError("a series mask needs y of the same shape (T, N).")
-    return _series_moments(x, yv, m, span, cross)
+    return _series_moments(x, yv, m, span, cross, per_row)
 
 
 def _series_moments(x: np.ndarray, y: np.ndarray, m: np.ndarray, span: dict,
-                    cross: bool) -> WindowMoments:
-    """Series-mask moments.  Every moment of every series sits in one (N, M, T) array with
-    time last and contiguous (a cumulative sum along a contiguous axis is several times
-    faster than along a strided one); the fields are returned as (D, N, ...) views."""
+                    cross: bool, per_row: bool = False) -> WindowMoments:
+    """Series-mask moments.  Every moment of every series sits in one (M, N, T) array with
+    time last and contiguous (a running sum along a contiguous axis is several times
+    faster than along a strided one, and each moment is one contiguous (N, T) slab); the
+    fields are returned as (D, N, ...) views."""
     t, p = x.shape
     n = y.shape[1]
     pairs = [(i, j) for i in range(p) for j in range(i + 1)] if cross else []
@@ -234,20 +244,25 @@ def _series_moments(x: np.ndarray, y: np.ndarray, m: np.ndarray, span: dict,
     g_mask = np.vstack([np.ones(t), x.T] + [x[:, i] * x[:, j] for i, j in pairs])
     g_ret = np.vstack([np.ones(t), x.T])
     q1, q2 = g_mask.shape[0], g_ret.shape[0]
-    mt = np.ascontiguousarray(m.T)
-    y0 = np.where(mt, y.T, 0.0)
-    mom = np.empty((n, q1 + q2 + int(cross), t))
-    np.multiply(mt[:, None, :], g_mask[None], out=mom[:, :q1])
-    np.multiply(y0[:, None, :], g_ret[None], out=mom[:, q1:q1 + q2])
+    mb = np.ascontiguousarray(m.T)
+    mt = mb.astype(float)
+    y0 = np.where(mb, np.ascontiguousarray(y.T), 0.0)
+    mom = np.empty((q1 + q2 + int(cross), n, t))
+    np.multiply(mt[None], g_mask[:, None, :], out=mom[:q1])
+    np.multiply(y0[None], g_ret[:, None, :], out=mom[q1:q1 + q2])
     if cross:
-        np.multiply(y0, y0, out=mom[:, -1])
-    mom = window_sums(mom, **span, axis=2, overwrite=True)
+        np.multiply(y0, y0, out=mom[-1])
+    if per_row and span["window"] is None:
+        raise ValueError("per_row needs a trailing window.")
+    mom = window_sums(mom, **span, axis=2, overwrite=True, per_row=per_row)
+    scale = min(int(span["window"]), t) if per_row else 1
 
     def field_(lo: int, hi: int | None = None) -> np.ndarray:
-        part = mom[:, lo] if hi is None else mom[:, lo:hi]
-        return np.moveaxis(part, -1, 0)
+        if hi is None:
+            return mom[lo].T
+        return mom[lo:hi].transpose(2, 1, 0)
 
-    count = np.rint(field_(0)).astype(np.int64)
+    count = np.rint(field_(0) * scale).astype(np.int64)
     packed = field_(1 + p, q1) if cross else None
     syy = field_(q1 + q2) if cross else None
     return WindowMoments(count, field_(1, 1 + p), field_(q1), field_(q1 + 1, q1 + q2), syy,

@@ -286,3 +286,20 @@ def test_book_premium_inside_the_stage(demo_case):
     q = fama_macbeth(ret, betas, factors=fac, book_betas=b, periods_per_year=4)
     assert q.to_dict()["book_premium"]["mkt"]["premium_annual"] == pytest.approx(4 * res.lambda_["mkt"])
     assert fama_macbeth(ret, betas, factors=fac).to_dict()["book_premium"] is None
+
+
+def test_traded_market_on_the_demo(demo_case):
+    """Demo: the market factor listed as traded is priced by its own mean over the months
+    used (Lewellen, Nagel and Shanken 2010), also with rolling betas; the others keep a
+    cross-sectional lambda; an unknown traded name is an input error."""
+    fac, ret, _ = demo_case
+    res = fama_macbeth(ret, time_series_betas(ret, fac).betas, factors=fac, traded=["mkt"])
+    m = fac.loc[res.gamma.index, "mkt"]
+    assert res.lambda_["mkt"] == pytest.approx(m.mean(), rel=1e-12)
+    assert res.se_fm["mkt"] == pytest.approx(m.std(ddof=1) / np.sqrt(len(m)), rel=1e-10)
+    assert res.to_dict()["lambda_route"] == {v: ("mean" if v == "mkt" else "cross-section") for v in VARS}
+    rolled = fama_macbeth(ret, rolling_betas(ret, fac, window=60, min_obs=36), factors=fac, traded=["mkt"])
+    assert rolled.lambda_["mkt"] == pytest.approx(fac.loc[rolled.gamma.index, "mkt"].mean(), rel=1e-12)
+    assert np.isfinite(rolled.se_shanken).all()
+    with pytest.raises(InputError, match="traded"):
+        fama_macbeth(ret, time_series_betas(ret, fac).betas, factors=fac, traded=["nope"])

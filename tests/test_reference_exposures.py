@@ -108,3 +108,43 @@ def test_rolling_betas_with_missing_months_match_per_window_regression(french_da
             assert rb.n_obs[t, i] == ok.sum()
             checked += 1
     assert checked > 1000
+
+
+def test_rolling_betas_with_listings_match_per_window_regression(french_data):
+    """Listings and delistings only (the shared-design path: each window's X'X shared by
+    the series complete in it, own range for the windows cut by a listing), beside a series
+    with one interior gap (per-series path), a blank series and complete ones: an
+    independent numpy lstsq per window on each series' valid months, 1e-8; the shared path
+    equals the per-series path to 1e-10."""
+    import hedgekit.exposures as ex
+
+    assets, factors = french_data
+    a = assets.iloc[:240, :8].copy()
+    f = factors.iloc[:240]
+    vals = a.to_numpy().copy()
+    vals[:70, 0] = np.nan            # listed late
+    vals[150:, 1] = np.nan           # delisted
+    vals[:20, 2] = np.nan
+    vals[200:, 2] = np.nan           # both
+    vals[120, 3] = np.nan            # one interior gap: per-series path
+    vals[:, 4] = np.nan              # never observed
+    a = pd.DataFrame(vals, index=a.index, columns=a.columns)
+    window, min_obs = 60, 36
+    rb = rolling_betas(a, f, window=window, min_obs=min_obs)
+    x = np.column_stack([np.ones(len(f)), f.to_numpy()])
+    for i in range(a.shape[1]):
+        for t in range(len(f)):
+            lo = max(0, t - window + 1)
+            ok = np.isfinite(vals[lo:t + 1, i])
+            assert rb.n_obs[t, i] == ok.sum()
+            if ok.sum() < min_obs:
+                assert np.isnan(rb.values[t, i]).all()
+                continue
+            ref = np.linalg.lstsq(x[lo:t + 1][ok], vals[lo:t + 1, i][ok], rcond=None)[0][1:]
+            np.testing.assert_allclose(rb.values[t, i], ref, rtol=0, atol=1e-8)
+    fc = f.to_numpy() - f.to_numpy().mean(axis=0)
+    out = np.empty((a.shape[1], len(f), fc.shape[1]))
+    cnt = np.empty((a.shape[1], len(f)), dtype=np.int64)
+    ex._rolling_block(vals, fc, window, min_obs, out=out, counts=cnt)
+    np.testing.assert_allclose(rb.values, out.transpose(1, 0, 2), rtol=0, atol=1e-10)
+    np.testing.assert_array_equal(rb.n_obs, cnt.T)

@@ -151,6 +151,8 @@ def test_grs_and_pricing_error_test_match_textbook_forms():
     assert res.grs["stat"] == pytest.approx(grs, rel=1e-10)
     assert res.grs["pvalue"] == pytest.approx(stats.f.sf(grs, n, t - n - k), rel=1e-9)
 
+    # The cross-sectional test prices every factor by the cross-section (no traded route).
+    res = fama_macbeth(r, time_series_betas(r, f).betas, factors=f)
     x = np.column_stack([np.ones(n), coef[1:].T])
     h = x @ np.linalg.solve(x.T @ x, x.T)
     alpha_t = rv - rv @ h.T
@@ -180,3 +182,108 @@ def test_rolling_betas_cross_sections_match_per_month_regression(french_data, in
         x = np.column_stack([np.ones(len(b)), b]) if intercept else b
         g = np.linalg.lstsq(x, a.iloc[t].to_numpy(), rcond=None)[0]
         np.testing.assert_allclose(res.gamma.loc[a.index[t]].to_numpy(), g, atol=1e-12)
+
+
+@pytest.mark.parametrize("intercept", [True, False])
+def test_traded_factor_priced_by_its_mean(french_data, intercept):
+    """A traded factor's lambda is its sample mean over the cross-section months, with the
+    plain se sd/sqrt(T) and the Newey-West se of a mean (statsmodels OLS on a constant,
+    cov_type="HAC" with use_correction=True: the Fama-MacBeth T(T-1) scaling); it joins the
+    test assets, and the other factors are priced by the monthly cross-sections of
+    R_t - b_mkt f_mkt,t on [1, b_smb, b_hml] (Lewellen, Nagel and Shanken 2010, JFE;
+    Cochrane 2005, Asset Pricing, ch. 12), computed here month by month with numpy lstsq."""
+    import statsmodels.api as sm
+
+    r, f = french_data
+    betas = time_series_betas(r, f).betas
+    res = fama_macbeth(r, betas, factors=f, traded=["MktRF"], nw_lags=4, intercept=intercept)
+    months = res.gamma.index
+    mkt = f.loc[months, "MktRF"]
+    t = len(mkt)
+    assert res.lambda_route == {"MktRF": "mean", "SMB": "cross-section", "HML": "cross-section"}
+    assert res.lambda_["MktRF"] == pytest.approx(mkt.mean(), rel=1e-12)
+    assert res.se_fm["MktRF"] == pytest.approx(mkt.std(ddof=1) / np.sqrt(t), rel=1e-10)
+    hac = sm.OLS(mkt.to_numpy(), np.ones(t)).fit(cov_type="HAC",
+                                                 cov_kwds={"maxlags": 4, "use_correction": True})
+    assert res.se_nw["MktRF"] == pytest.approx(float(hac.bse[0]), rel=1e-10)
+    assert res.se_shanken["MktRF"] == pytest.approx(mkt.std(ddof=0) / np.sqrt(t), rel=1e-10)
+
+    # Independent cross-sections with the market as a test asset (unit beta on itself).
+    b = np.vstack([betas[FACTORS].to_numpy(), [1.0, 0.0, 0.0]])
+    gam = []
+    for month in months:  # reference loop over months, not a hot path
+        y = np.r_[r.loc[month].to_numpy(), f.loc[month, "MktRF"]]
+        ok = np.isfinite(y)
+        x = b[ok, 1:]
+        if intercept:
+            x = np.column_stack([np.ones(ok.sum()), x])
+        gam.append(np.linalg.lstsq(x, y[ok] - b[ok, 0] * f.loc[month, "MktRF"], rcond=None)[0])
+    gam = np.array(gam).mean(axis=0)
+    np.testing.assert_allclose(res.lambda_[["SMB", "HML"]], gam[-2:], rtol=1e-9)
+    if intercept:
+        assert res.lambda_["const"] == pytest.approx(gam[0], rel=1e-9)
+    assert "factor:MktRF" in res.pricing_errors.index and res.n_assets == r.shape[1]
+    assert res.to_dict()["lambda_route"]["SMB"] == "cross-section"
+
+
+def test_all_traded_keeps_grs_and_prices_each_by_its_mean(french_data):
+    """Every factor traded: each lambda is its mean over the months used, and the GRS test
+    on the original assets is unchanged (Gibbons, Ross and Shanken 1989)."""
+    r, f = french_data
+    betas = time_series_betas(r, f).betas
+    res = fama_macbeth(r, betas, factors=f, traded=FACTORS, intercept=False)
+    np.testing.assert_allclose(res.lambda_[FACTORS], f.loc[res.gamma.index].mean(), rtol=1e-12)
+    with_cs = fama_macbeth(r, betas, factors=f, traded=FACTORS)
+    assert res.grs is not None and res.grs == with_cs.grs
+    assert set(res.lambda_route.values()) == {"mean"}
+
+
+@pytest.mark.parametrize("shape", [(200, 12), (12, 40), (40, 40), (60, 8)])
+def test_pricing_error_quadratic_equals_numpy_pinv(shape):
+    """v'(E'E)^+ v by Cholesky solves (N x N when N < T, the T x T Gram with its null vector
+    1 otherwise) equals numpy's pinv(E'E, rcond=1e-10) on deviations from the mean (columns
+    of E sum to zero, as in the Fama-MacBeth pricing-error covariance, Cochrane 2005
+    eq. 12.13), and the rank is numpy's matrix_rank; a rank-deficient E'E takes the
+    eigenvalue route with the same result."""
+    from hedgekit.premia import _pinv_quadratic
+
+    rng = np.random.default_rng(sum(shape))
+    t, n = shape
+    e = rng.standard_normal((t, n)) @ rng.standard_normal((n, n))
+    e -= e.mean(axis=0)
+    v = rng.standard_normal(n)
+    ete = e.T @ e
+    ref = v @ np.linalg.pinv(ete, rcond=1e-10, hermitian=True) @ v
+    stat, rank = _pinv_quadratic(e, v)
+    assert stat == pytest.approx(ref, rel=1e-9)
+    assert rank == np.linalg.matrix_rank(ete, tol=1e-10 * np.linalg.eigvalsh(ete).max(), hermitian=True)
+    if shape == (60, 8):
+        e[:, 3] = e[:, 2] + e[:, 1]                      # exactly collinear: rank N - 1
+        ete = e.T @ e
+        ref = v @ np.linalg.pinv(ete, rcond=1e-10, hermitian=True) @ v
+        stat, rank = _pinv_quadratic(e, v)
+        assert stat == pytest.approx(ref, rel=1e-8) and rank == n - 1
+
+
+@pytest.mark.parametrize("months", [15, 120])
+def test_pricing_error_test_balanced_short_and_long_panels(french_data, months):
+    """Balanced panel with betas on the same months: the pricing-error covariance
+    sum (alpha_t - alpha-bar)(alpha_t - alpha-bar)'/T^2 (Cochrane 2005 eq. 12.13) is
+    singular along the design X (N x N, long panel) and along [1, f] over time (short
+    panel, fewer months than assets); the statistic and rank equal numpy's pinv and
+    matrix_rank computed here."""
+    r, f = french_data
+    r, f = r.iloc[-months:], f.iloc[-months:]
+    betas = time_series_betas(r, f).betas
+    res = fama_macbeth(r, betas, factors=f, nw_lags=0)
+    rv = r.to_numpy()
+    t, n = rv.shape
+    x = np.column_stack([np.ones(n), betas.to_numpy()])
+    alpha_t = rv - rv @ (x @ np.linalg.solve(x.T @ x, x.T)).T
+    abar = alpha_t.mean(axis=0)
+    cov_a = (alpha_t - abar).T @ (alpha_t - abar) / t ** 2
+    w = np.linalg.eigvalsh(cov_a)
+    rank = int((w > 1e-10 * w.max()).sum())
+    stat = abar @ np.linalg.pinv(cov_a, rcond=1e-10, hermitian=True) @ abar
+    assert res.pricing_error_test["stat"] == pytest.approx(stat, rel=1e-9)
+    assert res.pricing_error_test["df"] == min(rank, n - x.shape[1])
