@@ -11,7 +11,7 @@ import pandas as pd
 
 from ..errors import InputError, quoted
 from .series import read_series
-from .tables import check_file, check_name, header_names, read_table
+from .tables import BIDI, check_file, check_name, header_names, read_table
 from .units import resolve_units
 
 SHEET_COLUMNS = ["instrument", "multiplier", "price", "cost_bps", "min_weight", "max_weight"]
@@ -102,8 +102,10 @@ def _names(frame: pd.DataFrame, name: str, column: str, lines: np.ndarray, what:
     if blank.any():
         i = int(np.flatnonzero(blank.to_numpy())[0])
         raise InputError(f"{what} name is blank.", file=name, row=int(lines[i]), column=column)
-    for i, text in enumerate(ids.to_numpy()):  # a handful of names, once
-        check_name(str(text), name, int(lines[i]), column, f"{what} name")
+    hostile = ids.str.contains(BIDI.pattern, regex=True).to_numpy(dtype=bool)
+    if hostile.any():
+        i = int(np.flatnonzero(hostile)[0])
+        check_name(str(ids.iloc[i]), name, int(lines[i]), column, f"{what} name")
     dup = ids.duplicated()
     if dup.any():
         i = int(np.flatnonzero(dup.to_numpy())[0])
