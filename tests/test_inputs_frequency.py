@@ -3,7 +3,6 @@ monthly files compound into quarterly runs (issues 11 and 14)."""
 
 from __future__ import annotations
 
-import hashlib
 from pathlib import Path
 
 import numpy as np
@@ -14,15 +13,7 @@ from hedgekit.config import load_config
 from hedgekit.inputs import load_dataset
 
 from .helpers import demo_copy
-
-
-def _hashes(folder: Path) -> dict[str, str]:
-    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in folder.iterdir() if p.is_file()}
-
-
-def _set_data(cfg: Path, lines: str) -> None:
-    text = cfg.read_text()
-    cfg.write_text(text.replace("[data]\n", "[data]\n" + lines + "\n", 1))
+from .test_inputs import _hashes, _set_data
 
 
 def test_a_folder_named_like_a_value_is_not_a_file(tmp_path, capsys):
