@@ -171,3 +171,18 @@ def test_coverage_and_gaps(tmp_path):
     assert before == [{"file": "states.csv", "column": None, "first": "1985-12", "last": "1989-12",
                        "periods": 49, "reason": "before the sample the estimates used (from 1990-01)"}]
     assert all(set(d) == {"file", "column", "first", "last", "periods", "reason"} for d in dropped)
+
+
+def test_overlap_of_all_files_in_validate_json(tmp_path, capsys):
+    """``hedgekit validate --json`` carries the overlap of every time-series file and the gaps."""
+    import json
+    cfg = demo_copy(tmp_path)
+    path = cfg.parent / "instruments.csv"
+    lines = path.read_text().splitlines()
+    path.write_text("\n".join(lines[:1] + lines[100:]) + "\n")  # instruments start 99 months later
+    assert main(["validate", str(cfg), "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)["data"]
+    first = lines[100].split(",")[0]
+    assert data["overlap"]["first"] == first and data["overlap"]["last"] == "2025-12"
+    assert data["overlap"]["periods"] == len(pd.period_range(first, "2025-12", freq="M"))
+    assert all(set(g) == {"file", "column", "first", "last", "periods", "reason"} for g in data["gaps"])
