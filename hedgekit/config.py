@@ -207,9 +207,7 @@ def _check(section: str, key: str, value: Any, kind: str, extra: Any, where: str
         if not isinstance(value, bool):
             raise bad("true or false")
         return value
-    if kind in ("int", "int|none"):
-        if kind == "int|none" and value is None:
-            return None
+    if kind == "int":
         if isinstance(value, bool) or not isinstance(value, int):
             raise bad("a whole number")
         return int(in_range(value))

@@ -33,6 +33,32 @@ def _set_cell(path: Path, row: int, col: int, value: str) -> None:
     _edit(path, fn)
 
 
+def _set_data(cfg: Path, lines: str) -> None:
+    """Add ``lines`` at the top of the config's [data] table."""
+    cfg.write_text(cfg.read_text().replace("[data]\n", "[data]\n" + lines + "\n", 1))
+
+
+def _hashes(folder: Path) -> dict[str, str]:
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in folder.iterdir() if p.is_file()}
+
+
+def run_case(tmp_path: Path, capsys, mutate, needles: list[str]) -> str:
+    """Mutate a copy of the demo, run ``hedgekit validate``: exit 2, one line with every needle,
+    no traceback, the input files untouched. Returns the message."""
+    cfg = demo_copy(tmp_path)
+    mutate(cfg.parent, cfg)
+    before = _hashes(cfg.parent)
+    code = main(["validate", str(cfg)])
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1, err
+    for needle in needles:
+        assert needle in err, f"{needle!r} not in {err!r}"
+    assert _hashes(cfg.parent) == before, "inputs must never be modified"
+    return err
+
+
 def _set_config(cfg: Path, old: str, new: str) -> None:
     text = cfg.read_text()
     assert old in text
@@ -115,20 +141,7 @@ CASES = {
 
 @pytest.mark.parametrize("case", list(CASES))
 def test_bad_input_exit_2_names_file_and_place(case, tmp_path, capsys):
-    cfg = demo_copy(tmp_path)
-    folder = cfg.parent
-    mutate, needles = CASES[case]
-    mutate(folder, cfg)
-    before = {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in folder.iterdir() if p.is_file()}
-    code = main(["validate", str(cfg)])
-    err = capsys.readouterr().err
-    assert code == 2, err
-    assert "Traceback" not in err
-    assert len(err.strip().splitlines()) == 1, err
-    for needle in needles:
-        assert needle in err, f"{needle!r} not in {err!r}"
-    after = {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in folder.iterdir() if p.is_file()}
-    assert before == after, "inputs must never be modified"
+    run_case(tmp_path, capsys, *CASES[case])
 
 
 def test_json_error_payload(tmp_path, capsys):

@@ -4,7 +4,6 @@ column and the fix, inputs untouched."""
 
 from __future__ import annotations
 
-import hashlib
 from pathlib import Path
 
 import pandas as pd
@@ -15,34 +14,13 @@ from hedgekit.config import load_config
 from hedgekit.inputs import load_dataset, read_series
 
 from .helpers import demo_copy
-
-
-def _edit(path: Path, fn) -> None:
-    lines = path.read_text().splitlines()
-    path.write_text("\n".join(fn(lines)) + "\n")
-
-
-def _set_cell(path: Path, row: int, col: int, value: str) -> None:
-    def fn(lines):
-        cells = lines[row - 1].split(",")
-        cells[col] = value
-        lines[row - 1] = ",".join(cells)
-        return lines
-    _edit(path, fn)
-
-
-def _set_data(cfg: Path, lines: str) -> None:
-    cfg.write_text(cfg.read_text().replace("[data]\n", "[data]\n" + lines + "\n", 1))
+from .test_inputs import _set_cell, _set_data, run_case
 
 
 def _column(path: Path, name: str, fn) -> None:
     frame = pd.read_csv(path, dtype={"date": str})
     frame[name] = fn(frame[name])
     frame.to_csv(path, index=False)
-
-
-def _hashes(folder: Path) -> dict[str, str]:
-    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in folder.iterdir() if p.is_file()}
 
 
 CASES = {
@@ -81,17 +59,7 @@ CASES = {
 
 @pytest.mark.parametrize("case", list(CASES))
 def test_implausible_input_exit_2(case, tmp_path, capsys):
-    cfg = demo_copy(tmp_path)
-    mutate, needles = CASES[case]
-    mutate(cfg.parent, cfg)
-    before = _hashes(cfg.parent)
-    code = main(["validate", str(cfg)])
-    err = capsys.readouterr().err
-    assert code == 2, err
-    assert "Traceback" not in err and len(err.strip().splitlines()) == 1, err
-    for needle in needles:
-        assert needle in err, f"{needle!r} not in {err!r}"
-    assert _hashes(cfg.parent) == before, "inputs must never be modified"
+    run_case(tmp_path, capsys, *CASES[case])
 
 
 def test_accept_extreme_lets_a_genuine_value_through(tmp_path, capsys):

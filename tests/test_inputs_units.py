@@ -3,7 +3,6 @@ file included, and no message suggests a setting that is already set."""
 
 from __future__ import annotations
 
-import hashlib
 from pathlib import Path
 
 import numpy as np
@@ -16,14 +15,7 @@ from hedgekit.errors import InputError
 from hedgekit.inputs import load_dataset
 
 from .helpers import demo_copy, french_excess
-
-
-def _hashes(folder: Path) -> dict[str, str]:
-    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in folder.iterdir() if p.is_file()}
-
-
-def _set_data(cfg: Path, lines: str) -> None:
-    cfg.write_text(cfg.read_text().replace("[data]\n", "[data]\n" + lines + "\n", 1))
+from .test_inputs import _hashes, _set_data
 
 
 def _scale(path: Path, columns: list[str], factor: float = 100.0) -> None:

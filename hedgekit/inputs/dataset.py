@@ -69,6 +69,26 @@ class Dataset:
             out += coverage.outside(frame, self.files.get(key, key), lo, hi)
         return out
 
+    def overlap(self) -> dict | None:
+        """``{first, last, periods}``: the stretch where every time-series file has a row with data
+        (None when the files do not overlap or none is read)."""
+        firsts, lasts, frames = [], [], []
+        for key in SERIES:
+            frame = getattr(self, key)
+            if frame is None:
+                continue
+            valid = frame.index[frame.notna().to_numpy().reshape(len(frame), -1).any(axis=1)]
+            if len(valid) == 0:
+                return None
+            firsts.append(valid[0])
+            lasts.append(valid[-1])
+            frames.append(frame)
+        if not frames or max(firsts) > min(lasts):
+            return None
+        lo, hi = max(firsts), min(lasts)
+        index = frames[0].index
+        return {"first": str(lo), "last": str(hi), "periods": int(((index >= lo) & (index <= hi)).sum())}
+
     def as_of(self, date: str | pd.Period) -> Dataset:
         """The same data cut at ``date`` (inclusive): a run as it would have been made then."""
         freq = FREQ[self.frequency]
@@ -124,6 +144,8 @@ class Dataset:
         if self.portfolio_returns is not None:
             out["portfolio_returns"] = {"name": str(self.portfolio_returns.name),
                                         "periods": int(self.portfolio_returns.notna().sum())}
+        out["overlap"] = self.overlap()
+        out["gaps"] = list(self.gaps)
         out["warnings"] = list(self.warnings)
         return out
 

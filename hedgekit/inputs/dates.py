@@ -39,38 +39,16 @@ def parse_dates(values: pd.Series, file: str, frequency: str, lines: np.ndarray)
     For ``frequency = "quarterly"`` a file of months comes back at monthly frequency with step
     ``"M"``: the caller aggregates it to quarters. ``lines`` are the file's line numbers.
     """
-    if pd.api.types.is_datetime64_any_dtype(values):
-        text = pd.Series(pd.DatetimeIndex(values).strftime("%Y-%m-%d"), index=values.index)
+    fast = _fast_fields(values)
+    if fast is not None:  # one plain form throughout: no per-cell text work (tall files)
+        years, months, days, has_day = fast
+        is_quarter = np.zeros(len(values), dtype=bool)
     else:
-        text = values.astype("string").fillna("")
-    parts = text.str.extract(_DATE_RE)
-    quarter = text.str.extract(_QUARTER_RE)
-    is_month = parts[0].notna().to_numpy()
-    is_quarter = quarter[0].notna().to_numpy()
-    has_day = parts[2].notna().to_numpy()
-    unknown = ~(is_month | is_quarter)
-    if unknown.any():
-        i = int(np.flatnonzero(unknown)[0])
-        raw = values.iloc[i]
-        if text.iloc[i].strip() and pd.Series([text.iloc[i]]).str.fullmatch(_DOTTED_RE).iloc[0]:
-            t = text.iloc[i].strip()
-            raise _fail(raw, file, int(lines[i]), f"write it as {t[:4]}-{t[-2:]} (year, hyphen, month); "
-                        "a decimal year-month is ambiguous (1948.1 is October or January).")
-        raise _fail(raw, file, int(lines[i]), "write dates like 2024-03 or 2024-03-31 (2024Q1 for quarters).")
-    if is_quarter.any() and frequency != "quarterly":
-        i = int(np.flatnonzero(is_quarter)[0])
-        raise _fail(values.iloc[i], file, int(lines[i]), 'set frequency = "quarterly" in [data] for quarterly '
-                    "files.", why="is a quarter label, but the run is " + frequency)
+        years, months, days, has_day, is_quarter = _text_fields(values, file, frequency, lines)
     if frequency == "daily" and (~has_day).any():
         i = int(np.flatnonzero(~has_day)[0])
         raise _fail(values.iloc[i], file, int(lines[i]), 'write full dates (2024-03-28) for daily data, or set '
                     'frequency = "monthly" in [data].', why="has no day, but the run is daily")
-    years = pd.to_numeric(parts[0], errors="coerce").to_numpy()
-    months = pd.to_numeric(parts[1], errors="coerce").to_numpy()
-    days = pd.to_numeric(parts[2], errors="coerce").to_numpy()
-    if is_quarter.any():
-        years = np.where(is_quarter, pd.to_numeric(quarter[0], errors="coerce").to_numpy(), years)
-        months = np.where(is_quarter, pd.to_numeric(quarter[1], errors="coerce").to_numpy() * 3, months)
     bad_month = ~((months >= 1) & (months <= 12))
     if bad_month.any():
         i = int(np.flatnonzero(bad_month)[0])
@@ -96,6 +74,58 @@ def parse_dates(values: pd.Series, file: str, frequency: str, lines: np.ndarray)
         _looks_other(index, has_day, values, file, lines)
     index = pd.PeriodIndex(index, name="date")
     return index, step
+
+
+def _fast_fields(values: pd.Series) -> tuple[np.ndarray, ...] | None:
+    """Year, month, day and has-day arrays when every date is ``YYYY-MM-DD`` or every one is
+    ``YYYY-MM`` (or the column is already dates); None sends the column to the cell-by-cell path."""
+    if pd.api.types.is_datetime64_any_dtype(values):
+        stamps = pd.DatetimeIndex(values)
+        if stamps.isna().any():
+            return None
+        return (stamps.year.to_numpy(), stamps.month.to_numpy(), stamps.day.to_numpy(),
+                np.ones(len(stamps), dtype=bool))
+    for fmt, with_day in (("%Y-%m-%d", True), ("%Y-%m", False)):
+        try:
+            stamps = pd.DatetimeIndex(pd.to_datetime(values, format=fmt, errors="coerce"))
+        except (ValueError, TypeError, OverflowError):
+            continue
+        if len(stamps) and not stamps.isna().any():
+            days = stamps.day.to_numpy() if with_day else np.full(len(stamps), np.nan)
+            return stamps.year.to_numpy(), stamps.month.to_numpy(), days, np.full(len(stamps), with_day)
+    return None
+
+
+def _text_fields(values: pd.Series, file: str, frequency: str, lines: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Year, month, day, has-day and is-quarter arrays read cell by cell; refuses unknown forms."""
+    text = values.astype("string").fillna("")
+    parts = text.str.extract(_DATE_RE)
+    quarter = text.str.extract(_QUARTER_RE)
+    is_month = parts[0].notna().to_numpy()
+    is_quarter = quarter[0].notna().to_numpy()
+    has_day = parts[2].notna().to_numpy()
+    unknown = ~(is_month | is_quarter)
+    if unknown.any():
+        i = int(np.flatnonzero(unknown)[0])
+        raw = values.iloc[i]
+        if text.iloc[i].strip() and pd.Series([text.iloc[i]]).str.fullmatch(_DOTTED_RE).iloc[0]:
+            t = text.iloc[i].strip()
+            raise _fail(raw, file, int(lines[i]), f"write it as {t[:4]}-{t[-2:]} (year, hyphen, month); "
+                        "a decimal year-month is ambiguous (1948.1 is October or January).")
+        raise _fail(raw, file, int(lines[i]), "write dates like 2024-03 or 2024-03-31 (2024Q1 for quarters).")
+    if is_quarter.any() and frequency != "quarterly":
+        i = int(np.flatnonzero(is_quarter)[0])
+        raise _fail(values.iloc[i], file, int(lines[i]), 'set frequency = "quarterly" in [data] for quarterly '
+                    "files.", why="is a quarter label, but the run is " + frequency)
+    years = pd.to_numeric(parts[0], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    months = pd.to_numeric(parts[1], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    days = pd.to_numeric(parts[2], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    if is_quarter.any():
+        q_years = pd.to_numeric(quarter[0], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+        q_num = pd.to_numeric(quarter[1], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+        years = np.where(is_quarter, q_years, years)
+        months = np.where(is_quarter, q_num * 3, months)
+    return years, months, days, has_day, is_quarter
 
 
 def _looks_other(index: pd.PeriodIndex, has_day: np.ndarray, values: pd.Series, file: str,

@@ -11,7 +11,7 @@ import pandas as pd
 
 from ..errors import InputError, quoted
 from .series import read_series
-from .tables import check_name, read_table
+from .tables import BIDI, check_file, check_name, header_names, read_table
 from .units import resolve_units
 
 SHEET_COLUMNS = ["instrument", "multiplier", "price", "cost_bps", "min_weight", "max_weight"]
@@ -28,7 +28,7 @@ def read_states(path: Path, order: Iterable[str] | None, market: str | None, *, 
     """
     name = str(path)
     cfg = config_file or name
-    header, _ = _peek_columns(path)
+    header = _peek_columns(path)
     cols = header[1:]
     order = list(order) if order else cols
     market = market or (order[0] if order else None)
@@ -80,14 +80,12 @@ def read_states(path: Path, order: Iterable[str] | None, market: str | None, *, 
     return out
 
 
-def _peek_columns(path: Path) -> tuple[list[str], None]:
+def _peek_columns(path: Path) -> list[str]:
     """The header of a CSV (or the columns of a Parquet file) without reading the rows."""
-    from .tables import _header, check_file
     check_file(path, "states")
     if path.suffix.lower() in (".parquet", ".pq"):
-        frame, _ = read_table(path, "states", numeric_from=1)
-        return [str(c) for c in frame.columns], None
-    return _header(path, "states"), None
+        return [str(c) for c in read_table(path, "states")[0].columns]
+    return header_names(path, "states")
 
 
 def read_returns(path: Path, what: str, *, frequency: str = "monthly", units: str | Mapping = "decimal",
@@ -104,8 +102,10 @@ def _names(frame: pd.DataFrame, name: str, column: str, lines: np.ndarray, what:
     if blank.any():
         i = int(np.flatnonzero(blank.to_numpy())[0])
         raise InputError(f"{what} name is blank.", file=name, row=int(lines[i]), column=column)
-    for i, text in enumerate(ids.to_numpy()):  # a handful of names, once
-        check_name(str(text), name, int(lines[i]), column, f"{what} name")
+    hostile = ids.str.contains(BIDI.pattern, regex=True).to_numpy(dtype=bool)
+    if hostile.any():
+        i = int(np.flatnonzero(hostile)[0])
+        check_name(str(ids.iloc[i]), name, int(lines[i]), column, f"{what} name")
     dup = ids.duplicated()
     if dup.any():
         i = int(np.flatnonzero(dup.to_numpy())[0])

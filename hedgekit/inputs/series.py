@@ -18,7 +18,7 @@ from ..errors import InputError, quoted
 from . import checks
 from .aggregate import monthly_to_quarterly
 from .dates import FREQ, PERIODS_PER_YEAR, parse_dates
-from .tables import read_table
+from .tables import read_numeric
 from .units import Units, resolve_units
 
 
@@ -35,22 +35,18 @@ def read_series(path: Path, what: str, *, frequency: str = "monthly", units: str
     """
     name = str(path)
     key = file_key or what
-    frame, lines = read_table(path, what, numeric_from=1)
-    if frame.shape[1] == 0 or frame.columns[0].lower() != "date":
-        raise InputError(f"the first column must be 'date' (found {quoted(frame.columns[0])}).", file=name,
-                         row=1, column=frame.columns[0] if frame.shape[1] else None,
-                         fix="put a 'date' column first, with dates like 2024-03.")
-    if frame.shape[1] < 2:
+    dates, columns, values, lines = read_numeric(path, what)
+    first_name = str(dates.name) if dates.name is not None else ""
+    if first_name.lower() != "date":
+        raise InputError(f"the first column must be 'date' (found {quoted(first_name)}).", file=name,
+                         row=1, column=first_name or None, fix="put a 'date' column first, with dates like 2024-03.")
+    if not columns:
         raise InputError(f"{what} file has a date column but no series.", file=name, row=1)
-    if len(frame) == 0:
+    if len(dates) == 0:
         raise InputError(f"{what} file has a header but no rows.", file=name)
-    index, step = parse_dates(frame.iloc[:, 0], name, frequency, lines)
+    index, step = parse_dates(dates, name, frequency, lines)
+    del dates
     _check_order(index, lines, name)
-    columns = [str(c) for c in frame.columns[1:]]
-    values = frame.iloc[:, 1:].to_numpy(dtype=float, na_value=np.nan)
-    if not values.flags.writeable:  # a read-only view of the parsed block
-        values = values.copy()
-    del frame
     inf = np.isinf(values)
     if inf.any():
         i = int(np.flatnonzero(inf.any(axis=1))[0])

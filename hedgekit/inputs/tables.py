@@ -30,7 +30,8 @@ from ..errors import InputError, quoted, shown
 
 NA_VALUES = ["", "NA", "NaN", "nan", "null", "NULL", "#N/A"]
 BIDI = re.compile("[\u202a-\u202e\u2066-\u2069\u200e\u200f]")
-_CHUNK = 1 << 22
+_CHUNK = 1 << 20
+_READ_BYTES = 64_000_000  # text per parsed chunk
 _DECIMAL_COMMA = re.compile(r"^\s*[+-]?\d*,\d+\s*$")
 
 
@@ -73,7 +74,7 @@ def check_file(path: Path, what: str) -> None:
         raise InputError(f"{what} file is empty.", file=name, fix="export the table again with a header row.")
 
 
-def _header(path: Path, what: str) -> list[str]:
+def header_names(path: Path, what: str) -> list[str]:
     name = str(path)
     try:
         with open(path, encoding="utf-8-sig", newline="") as fh:
@@ -88,7 +89,14 @@ def _header(path: Path, what: str) -> list[str]:
             if sep in line:
                 raise InputError(f"columns are separated by {label}, not commas.", file=name, row=1,
                                  fix="save the file as comma-separated CSV.")
-    names = next(csv.reader([line.rstrip("\r\n")]))
+    line = line.rstrip("\r\n")
+    if '"' not in line:
+        return [n.strip() for n in line.split(",")]
+    try:
+        names = next(csv.reader([line]))
+    except csv.Error as exc:
+        raise InputError(f"the header cannot be read ({shown(exc, 80)}).", file=name, row=1,
+                         fix="give the columns short names in a plain comma-separated header.") from None
     return [n.strip() for n in names]
 
 
@@ -111,12 +119,16 @@ def _line_fields(path: Path, quoted_file: bool) -> tuple[np.ndarray, np.ndarray]
         lines, counts = [], []
         with open(path, encoding="utf-8-sig", newline="") as fh:
             reader = csv.reader(fh)
-            next(reader, None)
-            for fields in reader:
-                if len(fields) == 0 or (len(fields) == 1 and not fields[0].strip()):
-                    continue
-                lines.append(reader.line_num)
-                counts.append(len(fields))
+            try:
+                next(reader, None)
+                for fields in reader:
+                    if len(fields) == 0 or (len(fields) == 1 and not fields[0].strip()):
+                        continue
+                    lines.append(reader.line_num)
+                    counts.append(len(fields))
+            except csv.Error as exc:
+                raise InputError(f"malformed CSV ({shown(exc, 80)}).", file=str(path), row=reader.line_num + 1,
+                                 fix="close every quoted cell and keep cells short.") from None
         return np.asarray(lines, dtype=np.int64), np.asarray(counts, dtype=np.int64)
     lines_out, counts_out = [], []
     line0 = 1  # number of the first line in the current chunk
@@ -138,10 +150,10 @@ def _line_fields(path: Path, quoted_file: bool) -> tuple[np.ndarray, np.ndarray]
             starts = np.concatenate(([0], nl[:-1] + 1))
             commas = np.flatnonzero(arr == 44)
             counts = np.searchsorted(commas, nl) - np.searchsorted(commas, starts) + 1
-            # a line is blank when it holds nothing but spaces, tabs and a carriage return
-            blank_chars = (arr == 32) | (arr == 9) | (arr == 13) | (arr == 10)
-            non_blank = np.flatnonzero(~blank_chars)
-            has_text = np.searchsorted(non_blank, nl) > np.searchsorted(non_blank, starts)
+            # a line without a comma may be blank (spaces, tabs, a carriage return): look at those only
+            has_text = counts > 1
+            for k in np.flatnonzero(~has_text):
+                has_text[k] = bool(buf[starts[k]:nl[k]].strip())
             numbers = line0 + np.arange(nl.size)
             lines_out.append(numbers[has_text])
             counts_out.append(counts[has_text])
@@ -210,49 +222,110 @@ def locate_non_number(path: Path, columns: list[str], lines: np.ndarray) -> Inpu
                       fix="use plain decimals (0.012), leave the cell blank when missing.")
 
 
-def read_table(path: Path, what: str, *, numeric_from: int | None = None) -> tuple[pd.DataFrame, np.ndarray]:
-    """A CSV or Parquet table as it is, and the file's line number of every row.
-
-    ``numeric_from``: columns from this position on are parsed as float64 (time series);
-    ``None`` reads every column as text (holdings, sheets).
-    """
+def _read_parquet(path: Path) -> pd.DataFrame:
     name = str(path)
-    check_file(path, what)
-    if path.suffix.lower() in (".parquet", ".pq"):
-        try:
-            frame = pd.read_parquet(path)
-        except ImportError:
-            raise InputError("reading Parquet needs pyarrow.", file=name,
-                             fix="pip install pyarrow, or export the table as CSV.") from None
-        except Exception as exc:  # noqa: BLE001 - any parquet failure is a bad file
-            raise InputError(f"cannot read Parquet file ({shown(exc, 200)}).", file=name) from None
-        if isinstance(frame.index, pd.DatetimeIndex | pd.PeriodIndex) or frame.index.name == "date":
-            frame = frame.reset_index()
-        frame.columns = [str(c) for c in frame.columns]
-        _check_header(list(frame.columns), name)
-        return frame, np.arange(2, len(frame) + 2)
-    names = _header(path, what)
-    _check_header(names, name)
+    try:
+        frame = pd.read_parquet(path)
+    except ImportError:
+        raise InputError("reading Parquet needs pyarrow.", file=name,
+                         fix="pip install pyarrow, or export the table as CSV.") from None
+    except Exception as exc:  # noqa: BLE001 - any parquet failure is a bad file
+        raise InputError(f"cannot read Parquet file ({shown(exc, 200)}).", file=name) from None
+    if isinstance(frame.index, pd.DatetimeIndex | pd.PeriodIndex) or frame.index.name == "date":
+        frame = frame.reset_index()
+    frame.columns = [str(c) for c in frame.columns]
+    _check_header(list(frame.columns), name)
+    return frame
+
+
+def _checked_csv(path: Path, what: str) -> tuple[list[str], np.ndarray]:
+    names = header_names(path, what)
+    _check_header(names, str(path))
     try:
         lines = _check_fields(path, names)
     except UnicodeDecodeError:
-        raise InputError("is not UTF-8 text.", file=name, fix="save the file as UTF-8 CSV.") from None
-    if numeric_from is None:
-        dtype: dict[str, str] | type = str
-    else:
-        dtype = {c: ("float64" if j >= numeric_from else "str") for j, c in enumerate(names)}
+        raise InputError("is not UTF-8 text.", file=str(path), fix="save the file as UTF-8 CSV.") from None
+    return names, lines
+
+
+def _csv_errors(exc: Exception, path: Path, what: str) -> InputError:
+    name = str(path)
+    if isinstance(exc, pd.errors.EmptyDataError):
+        return InputError(f"{what} file has no header or rows.", file=name)
+    if isinstance(exc, UnicodeDecodeError):
+        return InputError("is not UTF-8 text.", file=name, fix="save the file as UTF-8 CSV.")
+    return InputError(f"malformed CSV ({shown(exc, 200)}).", file=name,
+                      fix="every row needs the same number of comma-separated fields as the header.")
+
+
+def read_table(path: Path, what: str) -> tuple[pd.DataFrame, np.ndarray]:
+    """A CSV or Parquet table as text (holdings, sheets), and the file's line number of every row."""
+    check_file(path, what)
+    if path.suffix.lower() in (".parquet", ".pq"):
+        frame = _read_parquet(path).astype("string")
+        return frame, np.arange(2, len(frame) + 2)
+    names, lines = _checked_csv(path, what)
     try:
         frame = pd.read_csv(path, sep=",", encoding="utf-8-sig", skip_blank_lines=True, header=0,
-                            names=names, dtype=dtype, na_values=NA_VALUES, keep_default_na=False)
-    except ValueError as exc:
-        if numeric_from is not None and "convert" in str(exc):
-            raise locate_non_number(path, names[numeric_from:], lines) from None
-        raise InputError(f"malformed CSV ({shown(exc, 200)}).", file=name,
-                         fix="every row needs the same number of comma-separated fields as the header.") from None
-    except pd.errors.EmptyDataError:
-        raise InputError(f"{what} file has no header or rows.", file=name) from None
-    except UnicodeDecodeError:
-        raise InputError("is not UTF-8 text.", file=name, fix="save the file as UTF-8 CSV.") from None
-    if len(lines) != len(frame):  # a quoted newline inside a cell; fall back to plain numbering
+                            names=names, dtype=str, na_values=NA_VALUES, keep_default_na=False)
+    except (ValueError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise _csv_errors(exc, path, what) from None
+    if len(lines) != len(frame):  # cannot happen after the field check; plain numbering as a fallback
         lines = np.arange(2, len(frame) + 2)
     return frame, lines
+
+
+def read_numeric(path: Path, what: str) -> tuple[pd.Series, list[str], np.ndarray, np.ndarray]:
+    """A time-series table: its first column as text, the other columns' names, their values as
+    one float64 array (rows x columns), and the file's line number of every row.
+
+    The CSV is parsed in chunks of about ``_READ_BYTES`` of text straight into the preallocated
+    array, so the peak memory is the array plus one chunk (about 1.3 times the file's size for
+    a wide file of ten-digit decimals; measured in docs/interface.md).
+    """
+    check_file(path, what)
+    if path.suffix.lower() in (".parquet", ".pq"):
+        frame = _read_parquet(path)
+        if frame.shape[1] < 2:
+            return frame.iloc[:, 0] if frame.shape[1] else pd.Series([], dtype=str), [], \
+                np.empty((len(frame), 0)), np.arange(2, len(frame) + 2)
+        body = frame.iloc[:, 1:]
+        bad = [c for c in body.columns if not (pd.api.types.is_numeric_dtype(body[c])
+                                               and not pd.api.types.is_bool_dtype(body[c]))]
+        if bad:
+            col = bad[0]
+            text = body[col].astype("string")
+            ok = pd.to_numeric(text.str.strip(), errors="coerce").notna() | text.isna()
+            i = int(np.flatnonzero(~ok.to_numpy())[0]) if (~ok).any() else 0
+            raise InputError(f"value {quoted(body[col].iloc[i])} is not a number.", file=str(path), row=i + 2,
+                             column=col, fix="store the series as numbers, blank (null) when missing.")
+        values = body.to_numpy(dtype=float, na_value=np.nan)
+        return frame.iloc[:, 0], list(body.columns), values, np.arange(2, len(frame) + 2)
+    names, lines = _checked_csv(path, what)
+    size = max(path.stat().st_size, 1)
+    rows_per_chunk = max(256, int(_READ_BYTES / max(size / max(len(lines), 1), 1.0)))
+    values = np.empty((len(lines), len(names) - 1), order="F")  # column-major: pandas' own layout
+    first: list[pd.Series] = []
+    dtype = {c: ("float64" if j else "str") for j, c in enumerate(names)}
+    offset = 0
+    try:
+        reader = pd.read_csv(path, sep=",", encoding="utf-8-sig", skip_blank_lines=True, header=0, names=names,
+                             dtype=dtype, na_values=NA_VALUES, keep_default_na=False, chunksize=rows_per_chunk)
+        with reader:
+            for chunk in reader:
+                n = len(chunk)
+                if offset + n > len(values):
+                    raise InputError("rows could not be counted (a line break inside a quoted cell?).",
+                                     file=str(path), fix="remove line breaks from the cells.")
+                for j, col in enumerate(names[1:]):  # straight into the array, no 2-D temporary
+                    values[offset:offset + n, j] = chunk[col].to_numpy(dtype=float, na_value=np.nan)
+                first.append(chunk.iloc[:, 0])
+                offset += n
+    except ValueError as exc:
+        if "convert" in str(exc):
+            raise locate_non_number(path, names[1:], lines) from None
+        raise _csv_errors(exc, path, what) from None
+    except (pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise _csv_errors(exc, path, what) from None
+    dates = pd.concat(first, ignore_index=True) if first else pd.Series([], dtype=str, name=names[0])
+    return dates, names[1:], values[:offset], lines[:offset]
