@@ -21,7 +21,7 @@ At each rebalance date τ (quarter ends by default, or every month) and with dat
 The overlay h_τ (weights of NAV, held constant over the holding period, a common practice
 simplification) earns h_τ' r_{H,t} over τ+1 .. next rebalance; the cost of the trade is
 paid in period τ+1.  "Period" is a month for monthly data and a quarter for quarterly data
-(``periods_per_year`` 12 or 4); every window length (``min_window``, ``window``,
+(``periods_per_year`` 12 or 4); every window length (``min_periods``, ``window``,
 ``beta_window``, ``beta_min_obs``) counts periods, and the result's ``period_label`` says
 which word applies.  Every estimate at τ is computed on data sliced at τ, so changing any
 value dated after τ cannot change the decision made at τ (the tests check this to the bit).
@@ -37,7 +37,12 @@ Evaluation, on the out-of-sample periods (after the first rebalance):
   and S_f to the neutralised factors (the figure a hedge of those factors should move);
 * realised tracking error sd(h' r_H) × sqrt(periods_per_year) against the predicted one,
   sqrt(mean over held periods of h_τ' Σ_H h_τ) (annualised);
-* ``effectiveness_by_factor``: 1 - b_h,f^2 / b_u,f^2, factor by factor;
+* ``effectiveness_by_factor``: 1 - b_h,f^2 / b_u,f^2 for each neutralised factor f; null,
+  with the reason in ``effectiveness_note``, where the denominator is near zero: the
+  unhedged realised exposure lies within :data:`NEAR_ZERO_T` (1) standard error of zero
+  (|b_u,f| <= se(b_u,f), HAC), so there was no exposure to reduce and a percentage would
+  be noise (common practice).  A negative figure (the hedge made that exposure larger out
+  of sample) is called out in ``warnings`` naming the factor;
   ``variance_reduction``: 1 - var(hedged) / var(unhedged) of the realised returns;
 * turnover sum |h_τ - h_τ-| (the first build from zero included) and costs paid
   sum_j c_j |h_τ,j - h_τ-,j|, in total and per year, as fractions of NAV.
@@ -59,16 +64,17 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from .errors import InputError
 from .exposures import time_series_betas
 from .hedge import HedgeSpec, OverlayProblem, design_overlay, instrument_covariance
+from .inference import DEFAULT_CONFIDENCE, check_level, interval, interval_pairs, level_label
 from .jsonable import jsonable
 from .premia import fama_macbeth
 from .states import realtime_innovations
 
-__all__ = ["CONFIG_KEYS", "BacktestResult", "period_words", "rebalance_schedule", "walk_forward"]
+__all__ = ["CONFIG_KEYS", "NEAR_ZERO_T", "BacktestResult", "period_words", "rebalance_schedule",
+           "walk_forward"]
 
 _BOOK = "__book__"
 
@@ -76,7 +82,7 @@ _BOOK = "__book__"
 CONFIG_KEYS: dict[str, str] = {
     "nav": "[portfolio] nav",
     "lags": "[states] lags",
-    "min_window": "[backtest] min_months",
+    "min_periods": "[backtest] min_periods",
     "window": "[backtest] window",
     "beta_window": "[exposures] window",
     "beta_min_obs": "[exposures] min_obs",
@@ -84,7 +90,12 @@ CONFIG_KEYS: dict[str, str] = {
     "start": "[backtest] start",
     "premium_weight": "[hedge] premium_weight",
     "covariance_method": "[hedge] covariance",
+    "confidence": "[intervals] confidence",
 }
+
+#: An unhedged realised exposure within this many standard errors of zero has no
+#: effectiveness percentage (``effectiveness_note`` says why); common practice.
+NEAR_ZERO_T = 1.0
 
 
 def period_words(periods_per_year: int) -> tuple[str, str]:
@@ -115,7 +126,9 @@ class BacktestResult:
     ``n_periods`` is the number of out-of-sample periods evaluated and ``period_label``
     their word ("months" or "quarters", from ``periods_per_year``); ``n_months`` is the
     same count, kept under its old name for compatibility.  ``n_unreachable`` counts the
-    rebalance dates whose targets could not be reached.
+    rebalance dates whose targets could not be reached.  ``effectiveness_by_factor`` has
+    one entry per neutralised factor (NaN where ``effectiveness_note`` says why there is
+    no figure); ``sample`` spans the out-of-sample periods evaluated.
     """
 
     rebalance_dates: pd.PeriodIndex
@@ -152,12 +165,20 @@ class BacktestResult:
     n_unreachable: int
     settings: dict[str, Any]
     warnings: tuple[str, ...] = field(default_factory=tuple)
+    effectiveness_note: dict[str, str] = field(default_factory=dict)
+    sample: dict[str, Any] | None = None
 
-    def interval(self, which: str = "hedged") -> pd.DataFrame:
-        """Realised exposure interval at ``confidence`` (rows lo, hi) for one side."""
-        z = float(stats.norm.ppf(0.5 + self.confidence / 2))
+    def interval(self, which: str = "hedged", level: float | None = None) -> pd.DataFrame:
+        """Realised exposure (rows beta, se, lo, hi) at ``level`` (default ``confidence``)
+        for one side, "unhedged" or "hedged"."""
         b, s = self.realised_exposure.loc[which], self.realised_exposure_se.loc[which]
-        return pd.DataFrame({"beta": b, "se": s, "lo": b - z * s, "hi": b + z * s}).T
+        lo, hi = interval(b, s, self.confidence if level is None else level)
+        return pd.DataFrame({"beta": b, "se": s, "lo": lo, "hi": hi}).T
+
+    def conf_int(self, level: float | None = None, side: str = "hedged") -> pd.DataFrame:
+        """Realised exposure interval, statsmodels-style: factors x (``low``, ``high``)."""
+        ci = self.interval(side, level)
+        return pd.DataFrame({"low": ci.loc["lo"], "high": ci.loc["hi"]})
 
     def to_frame(self) -> pd.DataFrame:
         """The period-by-period series (what ``--out`` writes as CSV)."""
@@ -181,13 +202,20 @@ class BacktestResult:
             "predicted_tracking_error": self.predicted_tracking_error,
             "effectiveness_neutralised": self.effectiveness_neutralised,
             "effectiveness_by_factor": self.effectiveness_by_factor.to_dict(),
+            "effectiveness_note": dict(self.effectiveness_note),
             "variance_reduction": self.variance_reduction,
             "factors": list(self.factors),
             "neutralised": list(self.neutralised),
             "confidence": self.confidence,
+            "level_label": level_label(self.confidence),
+            "sample": self.sample,
             "realised_exposure": _frame_dict(self.realised_exposure),
             "realised_exposure_se": _frame_dict(self.realised_exposure_se),
             "realised_exposure_interval": intervals,
+            "realised_exposure_interval_pairs": {
+                side: interval_pairs(self.realised_exposure.loc[side],
+                                     self.realised_exposure_se.loc[side], self.confidence)
+                for side in ("unhedged", "hedged")},
             "hedged_interval_covers_zero": covers,
             "status": {str(d): s for d, s in self.status.items()},
             "predicted_tracking_error_by_date": {str(d): v for d, v in
@@ -253,13 +281,14 @@ def _to_period(value: Any, freq: str, what: str) -> pd.Period:
     try:
         return pd.Period(value, freq=freq)
     except (TypeError, ValueError):
+        example = "YYYYQn, e.g. '2005Q1'" if freq.startswith("Q") else "YYYY-MM, e.g. '2005-03'"
         raise InputError(f"{CONFIG_KEYS.get(what, what)} = '{value}' is not a date.",
-                         fix="write it as YYYY-MM, e.g. '2005-03'.") from None
+                         fix=f"write it as {example}.") from None
 
 
 def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFrame,
                  instrument_returns: pd.DataFrame, sheet: pd.DataFrame, *, spec: HedgeSpec,
-                 nav: float, lags: int | str = 1, min_window: int = 120,
+                 nav: float, lags: int | str = 1, min_periods: int = 120,
                  window: int | None = None, beta_window: int | None = None,
                  beta_min_obs: int = 36, rebalance: str = "quarterly",
                  start: str | pd.Period | None = None, periods_per_year: int = 12,
@@ -268,7 +297,7 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
                  premia_intercept: bool = True,
                  closest: bool = True, confidence: float | None = None,
                  progress: Callable[[int, int], None] | None = None,
-                 market: str | None = None) -> BacktestResult:
+                 market: str | None = None, min_window: int | None = None) -> BacktestResult:
     """Walk-forward re-estimation and hedge; see the module docstring for every step.
 
     ``state_data``: market excess return then state levels (orthogonalisation order),
@@ -276,10 +305,11 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
     and must be a column of ``state_data`` (the VAR is re-estimated at every date, so a
     factors file cannot stand in for the states).  All window lengths count periods
     (months for monthly data, quarters for quarterly; ``periods_per_year`` 12 or 4).
-    ``min_window``: periods of the first VAR fit (``[backtest] min_months``); ``window``:
-    rolling VAR window (None = expanding from ``min_window``); ``beta_window``: rolling
+    ``min_periods``: periods of the first VAR fit (``[backtest] min_periods``; ``min_window``
+    is the same setting under its earlier name); ``window``:
+    rolling VAR window (None = expanding from ``min_periods``); ``beta_window``: rolling
     window of betas and covariance (None = expanding).  The first rebalance (default) is
-    the first quarter end at which the VAR has ``min_window`` periods and the real-time
+    the first quarter end at which the VAR has ``min_periods`` periods and the real-time
     factors give the book and every instrument ``beta_min_obs`` periods; ``start`` moves
     it later.  ``asset_returns`` (test assets) are needed when
     ``spec.premium_weight > 0`` (Fama-MacBeth prices of risk at each date).  With
@@ -294,10 +324,13 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
     if not (isinstance(nav, int | float) and math.isfinite(nav) and nav > 0):
         raise InputError(f"{key['nav']} = {nav!r}: the NAV must be a positive number.",
                          fix="set it to the book's value in currency units.")
-    for name, value in (("min_window", min_window), ("beta_min_obs", beta_min_obs)):
+    if min_window is not None:
+        min_periods = min_window
+    for name, value in (("min_periods", min_periods), ("beta_min_obs", beta_min_obs)):
         if not isinstance(value, int | np.integer) or isinstance(value, bool) or value < 1:
             raise InputError(f"{key[name]} = {value!r} must be a positive whole number of "
-                             f"{unit}.", fix="use e.g. 120 (min_months) or 36 (min_obs).")
+                             f"{unit}.", fix=f"use e.g. 120 ({key['min_periods']}) or 36 "
+                                                     f"({key['beta_min_obs']}).")
     if window is not None and (not isinstance(window, int | np.integer)
                                or isinstance(window, bool) or window < 1):
         raise InputError(f"{key['window']} = {window!r} must be a positive whole number of "
@@ -316,21 +349,26 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
                          "prices of risk at each date.",
                          fix=f"give [data] assets or set {key['premium_weight']} = 0.")
     state_data = _market_first(state_data, market, spec)
-    conf = float(spec.confidence if confidence is None else confidence)
+    conf = getattr(spec, "confidence", DEFAULT_CONFIDENCE) if confidence is None else confidence
+    try:
+        conf = check_level(conf)
+    except (TypeError, ValueError):
+        raise InputError(f"{key['confidence']} = {conf!r} must lie in [0.5, 1).",
+                         fix="use for example 0.95.") from None
     warnings: list[str] = []
 
     if isinstance(state_data, pd.DataFrame):
         have = int(state_data.notna().all(axis=1).sum())
-        first_fit = int(window if window is not None else min_window)
+        first_fit = int(window if window is not None else min_periods)
         need = first_fit + (lags if isinstance(lags, int) else 1) + 1
         if have < need:
-            which = key["window"] if window is not None else key["min_window"]
+            which = key["window"] if window is not None else key["min_periods"]
             raise InputError(f"{which} = {first_fit}: the state data have only {have} complete "
                              f"{unit}, fewer than the {need} a first VAR fit on {first_fit} "
                              f"{unit} and one forecast need.",
                              file=state_data.attrs.get("file", "states"),
                              fix=f"lower {which} or use a longer sample.")
-    rt = realtime_innovations(state_data, lags=lags, min_window=min_window, window=window)
+    rt = realtime_innovations(state_data, lags=lags, min_window=min_periods, window=window)
     warnings += list(rt.warnings)
     fac_all = rt.factors()
     factors = tuple(str(c) for c in fac_all.columns)
@@ -367,9 +405,9 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
     if not ready.any():
         raise InputError(
             f"no date has {beta_min_obs} {unit} of real-time factors for the book and every "
-            f"instrument after a first VAR fit on {min_window} {unit} "
-            f"({key['min_window']} = {min_window}, {key['beta_min_obs']} = {beta_min_obs}).",
-            fix=f"use a longer sample, or lower {key['min_window']} or {key['beta_min_obs']}.")
+            f"instrument after a first VAR fit on {min_periods} {unit} "
+            f"({key['min_periods']} = {min_periods}, {key['beta_min_obs']} = {beta_min_obs}).",
+            fix=f"use a longer sample, or lower {key['min_periods']} or {key['beta_min_obs']}.")
     earliest = months[int(np.argmax(ready))]
     first = earliest
     if start is not None:
@@ -380,7 +418,7 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
                                  f"{key['start']} out.")
         if first < earliest:
             raise InputError(f"{key['start']} = '{start}' comes before the first date with "
-                             f"enough history, {earliest} (a first VAR fit on {min_window} "
+                             f"enough history, {earliest} (a first VAR fit on {min_periods} "
                              f"{unit}, then {beta_min_obs} {unit} of betas).",
                              fix=f"start at {earliest} or later, or leave {key['start']} out.")
     dates = rebalance_schedule(months, rebalance=rebalance, first=first)
@@ -392,7 +430,7 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
                          "overlay.",
                          fix=(f"start earlier ({key['start']}) or use a longer sample."
                               if start is not None else
-                              f"use a longer sample, or lower {key['min_window']} or "
+                              f"use a longer sample, or lower {key['min_periods']} or "
                               f"{key['beta_min_obs']}."))
 
     problem = OverlayProblem.for_inputs(instruments, spec, sheet)
@@ -549,14 +587,16 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
         j = [factors.index(f) for f in neutral]
         snn = s_f[np.ix_(j, j)]
         eff_n = 1.0 - float(bh[j] @ snn @ bh[j]) / float(bu[j] @ snn @ bu[j])
-    with np.errstate(divide="ignore", invalid="ignore"):
-        eff_f = pd.Series(1.0 - bh ** 2 / bu ** 2, index=list(factors), name="effectiveness")
+    se_u = se_real.loc["unhedged"].to_numpy()
+    eff_f, eff_note = _effectiveness_by_factor(neutral, factors, bu, bh, se_u)
+    warnings += _effectiveness_warnings(eff_f, factors, bu, bh)
     var_red = 1.0 - float(sides["hedged"].var(ddof=1) / sides["unhedged"].var(ddof=1))
     realised_te = float(overlay.std(ddof=1) * math.sqrt(periods_per_year))
     predicted_te = float(np.sqrt(np.mean(te_held.to_numpy() ** 2)))
     years = len(oos) / periods_per_year
     settings = {
-        "lags": rt.lags, "min_window": int(min_window), "window": window,
+        "lags": rt.lags, "min_periods": int(min_periods), "min_window": int(min_periods),
+        "window": window,
         "beta_window": beta_window, "beta_min_obs": int(beta_min_obs), "rebalance": rebalance,
         "first_rebalance": str(dates[0]), "covariance_method": covariance_method,
         "objective": spec.objective, "closest": bool(closest),
@@ -584,8 +624,35 @@ def walk_forward(state_data: pd.DataFrame, book_returns: pd.Series | pd.DataFram
         costs_paid=float(cost.sum()), costs_paid_annual=float(cost.sum() / years),
         nav=float(nav), n_months=n_periods, periods_per_year=int(periods_per_year),
         n_periods=n_periods, period_label=unit, n_unreachable=n_unreach,
-        settings=settings, warnings=tuple(warnings),
+        settings=settings, warnings=tuple(warnings), effectiveness_note=eff_note,
+        sample={"first": str(sides.index[0]), "last": str(sides.index[-1]),
+                "periods": n_periods},
     )
+
+
+def _effectiveness_by_factor(neutral: tuple[str, ...], factors: tuple[str, ...],
+                             bu: np.ndarray, bh: np.ndarray, se_u: np.ndarray
+                             ) -> tuple[pd.Series, dict[str, str]]:
+    """``1 - b_h,f^2 / b_u,f^2`` for each neutralised factor; NaN with a reason where the
+    unhedged exposure is within ``NEAR_ZERO_T`` standard errors of zero (module docstring)."""
+    j = [factors.index(f) for f in neutral]
+    u, h, s = bu[j], bh[j], se_u[j]
+    near_zero = ~(np.abs(u) > NEAR_ZERO_T * np.where(np.isfinite(s), s, np.inf))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        eff = np.where(near_zero, np.nan, 1.0 - h ** 2 / u ** 2)
+    note = {f: (f"the unhedged exposure out of sample ({u[k]:.4f}, se {s[k]:.4f}) is within "
+                f"{NEAR_ZERO_T:g} standard error of zero: there was no exposure to reduce, so "
+                "no percentage is given.")
+            for k, f in enumerate(neutral) if near_zero[k]}
+    return pd.Series(eff, index=list(neutral), name="effectiveness", dtype=float), note
+
+
+def _effectiveness_warnings(eff: pd.Series, factors: tuple[str, ...], bu: np.ndarray,
+                            bh: np.ndarray) -> list[str]:
+    """A warning for each neutralised factor the hedge made worse out of sample."""
+    return [f"out of sample the hedge of {f} made that exposure larger: effectiveness "
+            f"{100 * e:.1f} % (unhedged {bu[factors.index(f)]:.4f}, hedged "
+            f"{bh[factors.index(f)]:.4f})." for f, e in eff.items() if e < 0]
 
 
 def _market_first(state_data: pd.DataFrame, market: str | None, spec: HedgeSpec) -> pd.DataFrame:
