@@ -27,10 +27,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy.ndimage import uniform_filter1d
 
 from .errors import InputError
 from .jsonable import jsonable
+from .windows import window_moments
 
 __all__ = [
     "BetaEstimates",
@@ -416,70 +416,39 @@ class RollingBetas:
         }
 
 
-def _window_sum(a: np.ndarray, window: int) -> np.ndarray:
-    """Sum over the window ending at each row (rows t-window+1..t), along axis 0."""
-    c = np.cumsum(a, axis=0)
-    if window >= a.shape[0]:
-        return c
-    out = np.empty_like(c)
-    out[:window] = c[:window]
-    np.subtract(c[window:], c[:-window], out=out[window:])
-    return out
+def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int, *,
+                   out: np.ndarray, counts: np.ndarray) -> None:
+    """Rolling betas of one block of series on centred factors into ``out`` (n, T, K) and
+    their valid-month counts into ``counts`` (n, T).
 
-
-def _rolling_block(y: np.ndarray, fc: np.ndarray, window: int, min_obs: int,
-                   out: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Rolling betas of one block of series on centred factors: (T, n, K) and counts (T, n).
-
-    Window moments S_ff - s_f s_f'/n and S_fy - s_f s_y/n give the slope of the OLS on
-    [1, f] (the intercept partialled out, Frisch-Waugh-Lovell).  All moments of the block
-    sit in one (Q, n, T) array; one running-sum filter along time (scipy.ndimage) gives
-    every trailing window sum.
+    Window moments S_ff - s_f s_f'/n and S_fy - s_f s_y/n (each series over its own valid
+    months, :func:`hedgekit.windows.window_moments`) give the slope of the OLS on [1, f]
+    (the intercept partialled out, Frisch-Waugh-Lovell), solved by a batched Cholesky.
     """
-    yt = np.ascontiguousarray(y.T)
-    mask = np.isfinite(yt)
-    y0 = np.where(mask, yt, 0.0)
-    n, t = yt.shape
     k = fc.shape[1]
-    pairs = [(i, j) for i in range(k) for j in range(i + 1)]
-    # Factor-side terms: 1, f_j, f_i f_j (weighted by the mask); return-side: 1, f_j (by y).
-    g_mask = np.vstack([np.ones(t), fc.T] + [fc[:, i] * fc[:, j] for i, j in pairs])
-    g_ret = np.vstack([np.ones(t), fc.T])
-    q = g_mask.shape[0]
-    m = mask.astype(float)
-    mom = np.empty((q + g_ret.shape[0], n, t))
-    np.multiply(m[None], g_mask[:, None, :], out=mom[:q])
-    np.multiply(y0[None], g_ret[:, None, :], out=mom[q:])
-    w = min(window, t)
-    # Trailing window (months t-w+1..t): the running mean shifted by origin (w-1)//2, the
-    # largest shift scipy allows, with zeros before the first month.  Window means rather
-    # than sums: both sides of the normal equations scale by 1/w, the slopes do not.
-    uniform_filter1d(mom, size=w, axis=2, mode="constant", cval=0.0, origin=(w - 1) // 2,
-                     output=mom)
-    cnt = mom[0]
-    s_f = [mom[1 + j] for j in range(k)]
-    s_y = mom[q]
+    mom = window_moments(fc, y, mask=np.isfinite(y), window=window)
+    # (n, T) views, contiguous along time in the moments' own buffer, centred in place.
     with np.errstate(invalid="ignore", divide="ignore"):
-        inv_n = 1.0 / cnt
+        inv_n = 1.0 / mom.count.T
+        s_f = [mom.sx[..., j].T for j in range(k)]
         mean_f = [sf * inv_n for sf in s_f]
-        a: list[list[np.ndarray]] = [[None] * k for _ in range(k)]  # type: ignore[list-item]
         # Uncentred second moments: the yardstick for a pivot lost to cancellation.
-        raw_diag = [mom[1 + k + pairs.index((j, j))].copy() for j in range(k)]
-        tmp = np.empty_like(cnt)
-        for p_, (i, j) in enumerate(pairs):
-            s_ff = mom[1 + k + p_]
-            s_ff -= np.multiply(s_f[i], mean_f[j], out=tmp)
-            a[i][j] = s_ff
+        raw_diag = [mom.xx(j, j).T.copy() for j in range(k)]
+        tmp = np.empty_like(inv_n)
+        a: list[list[np.ndarray]] = [[None] * k for _ in range(k)]  # type: ignore[list-item]
+        for i in range(k):
+            for j in range(i + 1):
+                a[i][j] = mom.xx(i, j).T
+                a[i][j] -= np.multiply(s_f[i], mean_f[j], out=tmp)
         b = []
         for j in range(k):
-            s_fy = mom[q + 1 + j]
-            s_fy -= np.multiply(mean_f[j], s_y, out=tmp)
+            s_fy = mom.sxy[..., j].T
+            s_fy -= np.multiply(mean_f[j], mom.sy.T, out=tmp)
             b.append(s_fy)
-    counts = np.rint(cnt * w).astype(np.int64)
     x = _spd_solve(a, b, raw_diag)
-    out = np.stack(x, axis=-1, out=out)  # (n, T, K): written straight into the caller's block
+    np.stack(x, axis=-1, out=out)
+    counts[:] = mom.count.T
     out[counts < max(min_obs, k + 2)] = np.nan
-    return out.transpose(1, 0, 2), counts.T
 
 
 def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
@@ -511,8 +480,8 @@ def rolling_betas(returns: pd.DataFrame | pd.Series, factors: pd.DataFrame, *,
 
     def run(start: int) -> None:
         stop = min(start + _CHUNK, n)
-        _, c = _rolling_block(y[:, start:stop], fc, int(window), int(min_obs), out=store[start:stop])
-        counts_store[start:stop] = c.T
+        _rolling_block(y[:, start:stop], fc, int(window), int(min_obs),
+                       out=store[start:stop], counts=counts_store[start:stop])
 
     # Blocks of series bound the memory and stay in cache; numpy releases the GIL inside
     # each block, so two threads use two cores.  Results do not depend on the threading.

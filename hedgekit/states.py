@@ -26,6 +26,7 @@ from scipy.linalg import solve_triangular
 
 from .errors import InputError
 from .jsonable import jsonable
+from .windows import window_moments
 
 __all__ = [
     "LagSelection",
@@ -692,15 +693,10 @@ def realtime_innovations(data: pd.DataFrame, *, lags: int | str = 1, min_window:
     z = z_all - z_all[:first_n + p].mean(axis=0)
     x, y = _lagged(z, p)
     m_dim = x.shape[1]
-    sxx = np.cumsum(np.einsum("ti,tj->tij", x, x), axis=0)
-    sxy = np.cumsum(np.einsum("ti,tj->tij", x, y), axis=0)
-    syy = np.cumsum(np.einsum("ti,tj->tij", y, y), axis=0)
-    count = np.arange(1, n + 1, dtype=float)
-    if window is not None:
-        w = int(window)
-        for s in (sxx, sxy, syy):
-            s[w:] = s[w:] - s[:-w].copy()
-        count = np.minimum(count, w)
+    # Window sums of x x', x y', y y' through τ (expanding, or the last ``window`` rows).
+    mom = window_moments(x, y, window=None if window is None else int(window))
+    sxx, sxy, syy = mom.sxx, mom.sxy, mom.syy
+    count = mom.count.astype(float)
     fit = np.arange(first_n - 1, n)             # rows τ at which a fit exists
     # Scale to unit diagonal before solving: same solution, smaller condition number.
     a = sxx[fit]
