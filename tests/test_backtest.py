@@ -228,7 +228,8 @@ def test_batched_estimates_equal_the_stage_functions(demo):
     """The batched window betas and covariances equal hedgekit.exposures.time_series_betas
     and hedgekit.hedge.instrument_covariance (divisor T-1) run on each window by hand, for
     expanding and rolling windows and series with missing months."""
-    from hedgekit.backtest import _window_betas, _window_cov
+    from hedgekit.backtest.estimators import window_betas as _window_betas
+    from hedgekit.backtest.estimators import window_cov as _window_cov
     from hedgekit.exposures import time_series_betas
     from hedgekit.hedge import instrument_covariance
     from hedgekit.states import realtime_innovations

@@ -11,7 +11,8 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from hedgekit.backtest import NEAR_ZERO_T, _effectiveness_by_factor, walk_forward
+from hedgekit.backtest import NEAR_ZERO_T, walk_forward
+from hedgekit.backtest.evaluate import effectiveness_by_factor as _effectiveness_by_factor
 from hedgekit.hedge import HedgeSpec
 
 from .helpers import DEMO, read_demo
