@@ -6,7 +6,6 @@ from __future__ import annotations
 import json
 
 import numpy as np
-import pandas as pd
 import pytest
 import statsmodels.api as sm
 from scipy import stats
@@ -15,25 +14,18 @@ from hedgekit.backtest import NEAR_ZERO_T, walk_forward
 from hedgekit.backtest.evaluate import effectiveness_by_factor as _effectiveness_by_factor
 from hedgekit.hedge import HedgeSpec
 
-from .helpers import DEMO, read_demo
-
-NAV = 250_000_000.0
+from .test_backtest import NAV, _short, demo  # noqa: F401 (a fixture)
 
 
 @pytest.fixture(scope="module")
-def demo():
-    sheet = pd.read_csv(DEMO / "instrument_sheet.csv")
-    spec = HedgeSpec.from_sheet(sheet, neutralise=("term", "def"), keep={"mkt": (0.95, 1.05)},
-                                max_gross=1.5)
-    n = 240
-    return {"args": (read_demo("states").iloc[:n], read_demo("portfolio_returns")
-                     ["larkspur_fund"].iloc[:n], read_demo("instruments").iloc[:n], sheet),
-            "spec": spec, "sheet": sheet}
+def short(demo):  # noqa: F811
+    """The first 240 months of the demo with its hedge of term and def."""
+    return {"args": _short(demo, 240), "spec": demo["spec"]}
 
 
 @pytest.fixture(scope="module")
-def run80(demo):
-    return walk_forward(*demo["args"], spec=demo["spec"], nav=NAV, min_periods=60,
+def run80(short):
+    return walk_forward(*short["args"], spec=short["spec"], nav=NAV, min_periods=60,
                         confidence=0.80)
 
 
@@ -76,12 +68,12 @@ def test_near_zero_denominator_gives_null_and_a_reason():
     assert np.isnan(zero["def"]) and "def" in why
 
 
-def test_null_and_negative_effectiveness_on_a_book_without_state_exposure(demo):
+def test_null_and_negative_effectiveness_on_a_book_without_state_exposure(short):
     """The equity index future alone as the book (true dy, term, def and rf exposures zero in
     the demo's truth.json), all four state factors neutralised: the out-of-sample unhedged
     exposures to dy, term and def are within one se of zero, so null with a reason; rf's
     (noise, |t| > 1) is hedged into a larger one, so negative and named in warnings."""
-    states, _, inst, sheet = demo["args"]
+    states, _, inst, sheet = short["args"]
     spec = HedgeSpec.from_sheet(sheet, neutralise=("dy", "term", "def", "rf"), max_gross=1.5)
     res = walk_forward(states, inst["equity_index_future"], inst, sheet, spec=spec, nav=NAV,
                        min_periods=60)
@@ -116,10 +108,10 @@ def test_intervals_at_the_run_level(run80):
     assert pair == pytest.approx([b["term"] - z * se["term"], b["term"] + z * se["term"]])
 
 
-def test_min_periods_and_the_sample(demo, run80):
+def test_min_periods_and_the_sample(short, run80):
     """min_periods counts periods of the first VAR fit; min_window is the same setting under
     its earlier name (same decisions to the bit); sample spans the evaluated periods."""
-    old = walk_forward(*demo["args"], spec=demo["spec"], nav=NAV, min_window=60,
+    old = walk_forward(*short["args"], spec=short["spec"], nav=NAV, min_window=60,
                        confidence=0.80)
     assert np.array_equal(old.decisions.to_numpy(), run80.decisions.to_numpy())
     assert run80.settings["min_periods"] == 60

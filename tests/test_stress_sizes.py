@@ -14,31 +14,13 @@ from hedgekit.cli import main
 from hedgekit.errors import InputError
 from hedgekit.stress import BUILTIN_SCENARIOS, SIZE_WARN_SD, run_stress
 
-from .helpers import demo_copy, read_demo, truth
+from .helpers import demo_copy
+from .test_stress import BOOK, NAV, SIGMA, M, V, demo_sample  # noqa: F401 (a fixture)
 
-TRUTH = truth()
-V = TRUTH["variables"]
-M = pd.DataFrame(TRUTH["transform"]).T.loc[V, V]
-SIGMA = pd.DataFrame(TRUTH["var"]["sigma_u"]).T.loc[V, V]
-BOOK = pd.Series(TRUTH["book_betas"]).loc[V]
-NAV = float(TRUTH["nav"])
 SD = pd.Series(np.sqrt(np.diag(SIGMA.to_numpy())), index=V)
 
 
-@pytest.fixture(scope="module")
-def demo_sample():
-    """True-parameter raw innovations and factors of the demo (VAR(1) residuals)."""
-    states = read_demo("states")
-    z = states[V].to_numpy()
-    a = pd.DataFrame(TRUTH["var"]["coef"]).T.loc[V, [f"{v}.L1" for v in V]].to_numpy()
-    c = pd.Series(TRUTH["var"]["intercept"]).loc[V].to_numpy()
-    raw = pd.DataFrame(z[1:] - c - z[:-1] @ a.T, index=states.index[1:], columns=V)
-    factors = pd.DataFrame(raw.to_numpy() @ M.to_numpy().T, index=raw.index, columns=V)
-    factors["mkt"] = states["mkt"].iloc[1:]
-    return raw, factors, read_demo("portfolio_returns")["larkspur_fund"]
-
-
-def test_sizes_beside_the_samples_largest_move(demo_sample):
+def test_sizes_beside_the_samples_largest_move(demo_sample):  # noqa: F811
     """largest_sd = |s| / sqrt(Sigma_u[j, j]); sample_max_sd = the largest raw innovation of
     that variable in the shock's direction over the same sd, both computed here with pandas
     (the definitions of the module docstring, common practice).  The +150 bp credit shock is
@@ -157,7 +139,7 @@ def test_intervals_at_the_run_level():
         run_stress(BOOK, M, SIGMA, nav=NAV, confidence=1.5)
 
 
-def test_period_words_and_sample_follow_the_data(demo_sample):
+def test_period_words_and_sample_follow_the_data(demo_sample):  # noqa: F811
     """Monthly data replay months (and complete quarters besides); quarterly data (the demo
     summed to calendar quarters) replay quarters only and say quarters in the recession's
     description; sample = first, last and count of the innovations used (the contract)."""
