@@ -101,7 +101,7 @@ BUILTIN_SCENARIOS: dict[str, dict[str, Any]] = {
     },
     "dividend_yield_up_1pt": {
         "shocks": {"dy": 0.01},
-        "description": "dividend yield +1 point (+100 bp)",
+        "description": "dividend yield +1 point",
     },
     "equity_drawdown_20pct": {
         "shocks": {"mkt": -0.20},
@@ -680,8 +680,8 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
             "sample_recession", "isolated",
             BUILTIN_SCENARIOS["sample_recession"]["description"].format(
                 periods=recession["period_label"])
-            + f" ({recession['n_periods']} {recession['period_label']}, worst "
-              f"{recession_quantile:.0%})", surprise.to_dict()))
+            + f": {recession['n_periods']} {recession['period_label']}, the worst "
+              f"{recession_quantile:.0%}", surprise.to_dict()))
     elif include_builtin:
         warnings.append("no raw innovations given: the sample_recession scenario is left out.")
     if not rows:
@@ -755,18 +755,25 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
 
 
 def _size_warnings(table: pd.DataFrame, raw: pd.DataFrame | None) -> list[str]:
-    """One warning per scenario whose largest surprise is beyond the sample's largest move
-    (or beyond :data:`SIZE_WARN_SD` without the sample)."""
-    out: list[str] = []
-    for name, rows in table[table["beyond_sample"]].groupby("scenario", sort=False):
-        r = rows.iloc[0]       # the named shocks are the same in both readings
+    """One warning naming every scenario whose largest surprise is beyond the sample's
+    largest move (or beyond :data:`SIZE_WARN_SD` without the sample)."""
+    first = table[table["beyond_sample"]].drop_duplicates("scenario")  # same in both readings
+    if first.empty:
+        return []
+    beyond = ("the largest move of the sample in that direction" if raw is not None
+              else f"{SIZE_WARN_SD:g} sd")
+    if len(first) == 1:
+        r = first.iloc[0]
         var = _variable_words(str(r["largest_sd_variable"]))
-        if raw is not None:
-            out.append(f"scenario '{name}' moves the {var} by {r['largest_sd']:.1f} sd of its "
-                       f"innovation, beyond the largest move of the sample in that direction "
-                       f"({r['sample_max_sd']:.1f} sd, {r['sample_max_date']}): a move the "
-                       "sample never saw.")
-        else:
-            out.append(f"scenario '{name}' moves the {var} by {r['largest_sd']:.1f} sd of its "
-                       f"innovation, beyond {SIZE_WARN_SD:g} sd.")
-    return out
+        said = (f" ({r['sample_max_sd']:.1f} sd, {r['sample_max_date']}): a move the sample "
+                "never saw" if raw is not None else "")
+        return [f"scenario '{r['scenario']}' moves the {var} by {r['largest_sd']:.1f} sd of its "
+                f"innovation, beyond {beyond}{said}."]
+    parts = [f"'{r.scenario}' ({_variable_words(str(r.largest_sd_variable))} "
+             f"{r.largest_sd:.1f} sd"
+             + (f" against {r.sample_max_sd:.1f} sd at most, {r.sample_max_date})"
+                if raw is not None else ")")
+             for r in first.itertuples()]
+    tail = ": moves the sample never saw" if raw is not None else ""
+    return [f"{len(first)} scenarios move a variable by more standard deviations of its "
+            f"innovation than {beyond}{tail}: {'; '.join(parts)}."]

@@ -25,7 +25,8 @@ def test_sizes_beside_the_samples_largest_move(demo_sample):  # noqa: F811
     that variable in the shock's direction over the same sd, both computed here with pandas
     (the definitions of the module docstring, common practice).  The +150 bp credit shock is
     far beyond the demo's largest widening and is warned about, naming the default spread;
-    the sample recession (a mean of sample moves) never is."""
+    the sample recession (a mean of sample moves) never is.  One warning names every
+    scenario beyond the sample."""
     raw, _, _ = demo_sample
     res = run_stress(BOOK, M, SIGMA, nav=NAV, raw_innovations=raw)
     t = res.table.set_index(["scenario", "reading"])
@@ -41,6 +42,9 @@ def test_sizes_beside_the_samples_largest_move(demo_sample):  # noqa: F811
     rec = t.loc[("sample_recession", "isolated")]
     assert not rec["beyond_sample"] and rec["largest_sd"] <= rec["sample_max_sd"]
     said = [w for w in res.warnings if "credit_spreads_widen_150bp" in w]
+    assert said == [w for w in res.warnings if " sd" in w]      # one warning names them all
+    beyond = set(res.table.scenario[res.table.beyond_sample])
+    assert all(f"'{name}'" in said[0] for name in beyond) and len(beyond) >= 2
     assert len(said) == 1 and "default spread" in said[0] and "never saw" in said[0]
     assert f"{credit['largest_sd']:.1f} sd" in said[0]
     assert not any("sample_recession" in w and "sd" in w for w in res.warnings)
