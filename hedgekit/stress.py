@@ -29,7 +29,29 @@ the user writes it (``[[stress.scenarios]] number 2``, ``[stress] worst_k``, ...
 Intervals come from the betas' standard errors only, assuming the estimates are
 independent across factors and between book and overlay (an approximation; the
 shocks ``g`` are taken as given):
-``se(b'g) = sqrt(sum_f g_f^2 (se_book_f^2 + se_overlay_f^2))``.
+``se(b'g) = sqrt(sum_f g_f^2 (se_book_f^2 + se_overlay_f^2))``; the interval is
+``P&L +/- z se`` at ``confidence`` (:func:`hedgekit.inference.interval`, one level for the
+whole run, ``[intervals] confidence``).
+
+Scenario sizes (common practice, no single source).  Each row carries ``largest_sd``, the
+largest named surprise ``|s_j| / sd_j`` in standard deviations of that variable's raw
+innovation (``sd_j = sqrt(Sigma_u[j, j])``), and ``sample_max_sd``, the largest move of the
+same variable's raw innovation in the sample *in the same direction* as the shock, in the
+same standard deviations (with its date, ``sample_max_date``).  A scenario larger than
+anything the sample saw (``largest_sd > sample_max_sd``) gets a warning naming the
+variable and both sizes; without the sample's innovations the warning fires beyond
+:data:`SIZE_WARN_SD` (5) standard deviations instead.
+
+Units of user shocks.  Shocks are decimals of the variable's own unit, as the data are
+(interface: returns and levels in decimals).  A user shock is refused as a unit slip
+(``InputError``, exit 2) beyond :data:`SHOCK_BOUNDS`: the market excess return (the first
+variable) beyond +/-1.0 (100 %), any other state variable (a spread, rate or yield level)
+beyond +/-0.10 (1,000 bp), e.g. ``def = 150`` with the fix "write 0.015 for +150 bp"
+(bounds: common practice, far beyond any one-period move in the data).
+
+Period words follow the data: the replay of the worst periods (:attr:`StressResult.replay`)
+lists months for monthly data and quarters for quarterly data; monthly data also get
+``replay_quarters`` (sums over complete calendar quarters), quarterly data none.
 """
 
 from __future__ import annotations
@@ -42,14 +64,16 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from .errors import InputError
+from .inference import check_level, interval, level_label
 from .jsonable import jsonable
 
 __all__ = [
     "BUILTIN_SCENARIOS",
     "READINGS",
+    "SHOCK_BOUNDS",
+    "SIZE_WARN_SD",
     "StressResult",
     "historical_replay",
     "overlay_exposure",
@@ -75,7 +99,7 @@ BUILTIN_SCENARIOS: dict[str, dict[str, Any]] = {
         "shocks": {"rf": -0.01},
         "description": "short rate -100 bp",
     },
-    "yield_jump_1pt": {
+    "dividend_yield_up_1pt": {
         "shocks": {"dy": 0.01},
         "description": "dividend yield +1 point",
     },
@@ -85,8 +109,23 @@ BUILTIN_SCENARIOS: dict[str, dict[str, Any]] = {
     },
     "sample_recession": {
         "shocks": None,
-        "description": "average raw innovations over the book's worst months of the sample",
+        "description": "average raw innovations over the book's worst {periods} of the sample",
     },
+}
+
+#: Largest user shock accepted, by kind of variable, in decimals: the market excess return
+#: (the first variable) and the other state variables (spreads, rates, yields as levels).
+#: Beyond it the shock is taken for a unit slip (150 typed for +150 bp).  Common practice.
+SHOCK_BOUNDS: dict[str, float] = {"market": 1.0, "level": 0.10}
+
+#: Without the sample's innovations, a scenario whose largest named surprise exceeds this
+#: many innovation standard deviations is flagged (common practice).
+SIZE_WARN_SD = 5.0
+
+#: Words for the conventional variable names, for descriptions written from the shocks.
+VARIABLE_WORDS: dict[str, str] = {
+    "mkt": "market excess return", "dy": "dividend yield", "term": "term spread",
+    "def": "default spread", "rf": "short rate",
 }
 
 # Built-in scenarios use the conventional variable names; when the market column is named
@@ -107,19 +146,31 @@ def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
     return [jsonable(r) for r in out.to_dict(orient="records")]
 
 
+def _sample(index: pd.Index) -> dict[str, Any] | None:
+    """``{"first", "last", "periods"}`` of a PeriodIndex ("YYYY-MM" or "YYYYQn")."""
+    if len(index) == 0:
+        return None
+    return {"first": str(index[0]), "last": str(index[-1]), "periods": int(len(index))}
+
+
 @dataclass(frozen=True)
 class StressResult:
     """Scenario P&L before and after the overlay, and the historical replay.
 
-    ``table`` has one row per scenario and reading: the P&L of the unhedged and hedged
-    book in return units with its standard error and interval, and in currency (× NAV).
+    ``table`` has one row per scenario and reading: ``label`` (the one name the table and
+    the chart show), the P&L of the unhedged and hedged book in return units with its
+    standard error and interval at ``confidence``, and in currency (x NAV).
     ``shocks`` (rows as ``table``) are the orthogonal factor shocks ``g``, ``surprises``
     the raw natural-unit surprises after the reading is applied, and
     ``contributions_unhedged`` / ``contributions_hedged`` the per-factor terms ``b_f g_f``.
-    ``largest_sd`` (the largest named surprise in monthly innovation standard deviations)
-    and ``mahalanobis`` (sqrt(s' Sigma_u^{-1} s)) say how extreme a scenario is.
-    ``replay_months`` / ``replay_quarters`` list the worst months and quarters of the
-    sample, by factor contribution and by the book's state-driven P&L.
+    ``largest_sd`` (the largest named surprise in innovation standard deviations),
+    ``sample_max_sd`` (the sample's largest move of that variable in the same direction,
+    same units), ``beyond_sample`` and ``mahalanobis`` (sqrt(s' Sigma_u^{-1} s)) say how
+    extreme a scenario is.  ``replay`` lists the worst periods of the sample at the data's
+    frequency (``period_label`` "months" or "quarters"), by factor contribution and by the
+    book's state-driven P&L; ``replay_months`` / ``replay_quarters`` are the same tables by
+    their period (monthly data have both, quarterly data quarters only).  ``sample`` is
+    the span of the innovations the sizes and the replay use.
     """
 
     factors: tuple[str, ...]
@@ -136,6 +187,24 @@ class StressResult:
     book_betas: pd.Series
     hedged_betas: pd.Series
     warnings: tuple[str, ...] = field(default_factory=tuple)
+    period_label: str = "months"
+    sample: dict[str, Any] | None = None
+    sizes: dict[int, dict[str, dict[str, Any]]] = field(default_factory=dict)
+
+    @property
+    def replay(self) -> pd.DataFrame | None:
+        """The worst periods of the sample at the data's own frequency."""
+        return self.replay_quarters if self.period_label == "quarters" else self.replay_months
+
+    def conf_int(self, level: float | None = None, side: str = "hedged") -> pd.DataFrame:
+        """Scenario P&L interval (columns ``low``, ``high``, return units) at ``level``
+        (default the stored ``confidence``), rows as :attr:`table`, for one ``side``
+        ("unhedged" or "hedged")."""
+        if side not in ("unhedged", "hedged"):
+            raise ValueError(f"side must be 'unhedged' or 'hedged', not {side!r}.")
+        lo, hi = interval(self.table[side], self.table[f"{side}_se"],
+                          self.confidence if level is None else level)
+        return pd.DataFrame({"low": lo, "high": hi}, index=self.table.index)
 
     def to_frame(self) -> pd.DataFrame:
         """The scenario table (one row per scenario and reading)."""
@@ -148,8 +217,14 @@ class StressResult:
             rows.append({
                 "name": r.scenario,
                 "reading": r.reading,
+                "label": r.label,
                 "description": r.description,
                 "largest_sd": r.largest_sd,
+                "largest_sd_variable": r.largest_sd_variable,
+                "sample_max_sd": r.sample_max_sd,
+                "sample_max_date": r.sample_max_date,
+                "beyond_sample": r.beyond_sample,
+                "size_by_variable": self.sizes.get(i, {}),
                 "mahalanobis": r.mahalanobis,
                 "surprise": self.surprises.iloc[i].to_dict(),
                 "shocks": self.shocks.iloc[i].to_dict(),
@@ -163,6 +238,7 @@ class StressResult:
                         "se": getattr(r, f"{side}_se"),
                         "lo": getattr(r, f"{side}_lo"),
                         "hi": getattr(r, f"{side}_hi"),
+                        "interval": [getattr(r, f"{side}_lo"), getattr(r, f"{side}_hi")],
                         "currency": getattr(r, f"{side}_ccy"),
                         "currency_lo": getattr(r, f"{side}_ccy_lo"),
                         "currency_hi": getattr(r, f"{side}_ccy_hi"),
@@ -170,14 +246,20 @@ class StressResult:
                     for side in ("unhedged", "hedged")
                 },
             })
+        replay = self.replay
         return jsonable({
             "factors": list(self.factors),
             "nav": self.nav,
             "confidence": self.confidence,
+            "level_label": level_label(self.confidence),
+            "sample": self.sample,
+            "period_label": self.period_label,
             "book_betas": self.book_betas.to_dict(),
             "hedged_betas": self.hedged_betas.to_dict(),
             "scenarios": rows,
             "replay": {
+                "period_label": self.period_label,
+                "periods": [] if replay is None else _records(replay),
                 "months": [] if self.replay_months is None else _records(self.replay_months),
                 "quarters": [] if self.replay_quarters is None else _records(self.replay_quarters),
             },
@@ -272,9 +354,51 @@ def scenario_shocks(transform: pd.DataFrame, sigma_u: pd.DataFrame,
 
 
 def _unit(index: pd.Index) -> str:
-    """The word for one period of ``index``, plural: quarters or months."""
+    """The word for the periods of ``index``, plural: quarters or months."""
     q = isinstance(index, pd.PeriodIndex) and index.freqstr.startswith("Q")
     return "quarters" if q else "months"
+
+
+def _scenario_sizes(spec: np.ndarray, sd: np.ndarray, raw: pd.DataFrame | None,
+                    variables: list[str]) -> tuple[pd.DataFrame, dict[int, dict]]:
+    """``largest_sd`` and the sample's largest move of the same variable in the same direction.
+
+    Columns: ``largest_sd``, ``largest_sd_variable``, ``sample_max_sd``, ``sample_max_date``,
+    ``beyond_sample`` (see the module docstring); plus, by row, ``{variable: {shock_sd,
+    sample_max_sd, sample_max_date}}`` for every named variable.
+    """
+    named = np.isfinite(spec)
+    ratio = np.where(named, np.abs(spec) / sd, np.nan)
+    with np.errstate(invalid="ignore"):
+        worst = np.nanargmax(np.where(named, ratio, -np.inf), axis=1)
+    rows = np.arange(len(spec))
+    largest = ratio[rows, worst]
+    up = down = up_at = down_at = None
+    if raw is not None and len(raw):
+        u = raw.to_numpy(dtype=float)
+        up, down = u.max(axis=0) / sd, (-u).max(axis=0) / sd
+        up_at, down_at = raw.index[u.argmax(axis=0)], raw.index[u.argmin(axis=0)]
+
+    def sample_move(j: int, sign: float) -> tuple[float | None, str | None]:
+        if up is None:
+            return None, None
+        return (float(up[j]), str(up_at[j])) if sign >= 0 else (float(down[j]), str(down_at[j]))
+
+    top = [sample_move(int(worst[i]), spec[i, worst[i]]) for i in rows]  # a handful of rows
+    sample_max = np.array([np.nan if m is None else m for m, _ in top])
+    beyond = largest > (sample_max if up is not None else SIZE_WARN_SD)
+    frame = pd.DataFrame({
+        "largest_sd": largest,
+        "largest_sd_variable": [variables[j] for j in worst],
+        "sample_max_sd": sample_max,
+        "sample_max_date": [d for _, d in top],
+        "beyond_sample": beyond,
+    })
+    detail = {int(i): {variables[j]: dict(zip(("shock_sd", "sample_max_sd", "sample_max_date"),
+                                               (float(ratio[i, j]),
+                                                *sample_move(j, spec[i, j])), strict=True))
+                       for j in np.flatnonzero(named[i])} for i in rows}
+    return frame, detail
 
 
 def _recession_surprise(raw: pd.DataFrame, book: np.ndarray, m: np.ndarray,
@@ -300,6 +424,32 @@ def _recession_surprise(raw: pd.DataFrame, book: np.ndarray, m: np.ndarray,
         "threshold_pnl": float(pnl[worst].max()),
     }
     return surprise, info
+
+
+def _variable_words(name: str) -> str:
+    return VARIABLE_WORDS.get(name, name)
+
+
+def _describe(shocks: Mapping[str, float], market: str) -> str:
+    """Words for a shock set: the market in %, levels in bp ("default spread +150 bp")."""
+    return ", ".join(f"{_variable_words(v)} {100 * x:+g} %" if v == market
+                     else f"{_variable_words(v)} {1e4 * x:+g} bp" for v, x in shocks.items())
+
+
+def _check_scale(where: str, var: str, value: float, *, market: bool) -> None:
+    """Refuse a shock beyond :data:`SHOCK_BOUNDS` for its kind: a unit slip, not a scenario."""
+    bound = SHOCK_BOUNDS["market" if market else "level"]
+    if abs(value) <= bound:
+        return
+    if market:
+        kind = f"a market excess return beyond {bound:g} (100 %)"
+        fix = f"write {value / 100:g} for {value:+g} %."
+    else:
+        kind = f"a spread, rate or yield move beyond {bound:g} ({bound * 1e4:,.0f} bp)"
+        fix = (f"write {value / 1e4:g} for {value:+g} bp." if abs(value) >= 1
+               else f"write {value / 100:g} for {value:+g} % ({value * 100:+g} bp).")
+    raise InputError(f"{where}: shocks.{var} = {value:g} is {kind}; shocks are decimals "
+                     "(0.01 is +100 bp, -0.20 is -20 %).", fix=fix)
 
 
 def _parse_scenarios(scenarios: Sequence[Mapping[str, Any]] | None, variables: list[str],
@@ -340,6 +490,7 @@ def _parse_scenarios(scenarios: Sequence[Mapping[str, Any]] | None, variables: l
             if not math.isfinite(val):
                 raise InputError(f"{where}: shocks.{var} = {x!r} is not finite.",
                                  fix="give a finite decimal.")
+            _check_scale(where, str(var), val, market=str(var) == variables[0])
             clean[str(var)] = val
         reading = str(sc.get("reading", "both"))
         if reading in ("co-move", "co_move", "typical"):
@@ -347,7 +498,7 @@ def _parse_scenarios(scenarios: Sequence[Mapping[str, Any]] | None, variables: l
         if reading not in (*READINGS, "both"):
             raise InputError(f"{where}: reading = '{reading}' is an unknown reading.",
                              fix=f"use {_nearest(reading, [*READINGS, 'both'])}.")
-        desc = str(sc.get("description", ", ".join(f"{v} {x:+g}" for v, x in clean.items())))
+        desc = str(sc.get("description", _describe(clean, variables[0])))
         for r in (READINGS if reading == "both" else (reading,)):
             user.append((name, r, desc, clean))
     rows: list[tuple[str, str, str, dict]] = []
@@ -475,9 +626,11 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
     if not (isinstance(nav, int | float) and math.isfinite(nav) and nav > 0):
         raise InputError(f"[portfolio] nav = {nav!r}: the NAV must be a positive number.",
                          fix="set it to the book's value in currency units.")
-    if not 0 < confidence < 1:
-        raise InputError(f"[hedge] confidence = {confidence!r} must lie between 0 and 1.",
-                         fix="use for example 0.95.")
+    try:
+        confidence = check_level(confidence)
+    except (TypeError, ValueError):
+        raise InputError(f"[intervals] confidence = {confidence!r} must lie in [0.5, 1).",
+                         fix="use for example 0.95.") from None
     if not 0 < recession_quantile < 1:
         raise InputError(f"[stress] recession_quantile = {recession_quantile!r} must lie "
                          "between 0 and 1.", fix="use for example 0.05.")
@@ -525,9 +678,10 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
         surprise, recession = _recession_surprise(raw, b, m, recession_quantile)
         rows.append((
             "sample_recession", "isolated",
-            BUILTIN_SCENARIOS["sample_recession"]["description"]
-            + f" ({recession['n_periods']} {recession['period_label']}, worst "
-              f"{recession_quantile:.0%})", surprise.to_dict()))
+            BUILTIN_SCENARIOS["sample_recession"]["description"].format(
+                periods=recession["period_label"])
+            + f": {recession['n_periods']} {recession['period_label']}, the worst "
+              f"{recession_quantile:.0%}", surprise.to_dict()))
     elif include_builtin:
         warnings.append("no raw innovations given: the sample_recession scenario is left out.")
     if not rows:
@@ -538,7 +692,6 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
     filled, shocks = scenario_shocks(transform, sigma_u, spec, readings)
     g = shocks.to_numpy()
     bh = b + o
-    z = float(stats.norm.ppf(0.5 + confidence / 2))
     pnl_u = g @ b
     pnl_h = g @ bh
     se_u = np.sqrt((g ** 2) @ (se_b ** 2))
@@ -547,29 +700,36 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
         "scenario": [r[0] for r in rows],
         "reading": readings,
         "description": [r[2] for r in rows],
+        "label": [f"{r[2]} ({r[1]})" for r in rows],
     }).rename_axis(INDEX_NAME)
     for side, p, s in (("unhedged", pnl_u, se_u), ("hedged", pnl_h, se_h)):
+        lo, hi = interval(p, s, confidence)
         table[side] = p
         table[f"{side}_se"] = s
-        table[f"{side}_lo"] = p - z * s
-        table[f"{side}_hi"] = p + z * s
+        table[f"{side}_lo"] = lo
+        table[f"{side}_hi"] = hi
         table[f"{side}_ccy"] = p * nav
-        table[f"{side}_ccy_lo"] = (p - z * s) * nav
-        table[f"{side}_ccy_hi"] = (p + z * s) * nav
+        table[f"{side}_ccy_lo"] = lo * nav
+        table[f"{side}_ccy_hi"] = hi * nav
     table["hedge_saves_ccy"] = (pnl_h - pnl_u) * nav
-    # How far out a scenario is: the largest named surprise in monthly innovation standard
-    # deviations, and the Mahalanobis distance sqrt(s' Sigma_u^{-1} s) of the whole raw
-    # surprise (common practice for judging a scenario's plausibility).
+    # How far out a scenario is: the largest named surprise in innovation standard
+    # deviations beside the sample's largest move, and the Mahalanobis distance
+    # sqrt(s' Sigma_u^{-1} s) of the whole raw surprise (common practice).
     sig = sigma_u.reindex(index=variables, columns=variables).to_numpy(dtype=float)
     sd = np.sqrt(np.diag(sig))
-    named = np.isfinite(spec.to_numpy())
-    table["largest_sd"] = np.nanmax(np.where(named, np.abs(spec.to_numpy()) / sd, np.nan), axis=1)
+    raw_sample = None if raw_innovations is None else \
+        raw_innovations.reindex(columns=variables).dropna()
+    sizes, size_detail = _scenario_sizes(spec.to_numpy(), sd, raw_sample, variables)
+    for col in sizes.columns:
+        table[col] = sizes[col].to_numpy()
     fill = filled.to_numpy()
     table["mahalanobis"] = np.sqrt(np.einsum("si,si->s", fill, np.linalg.solve(sig, fill.T).T))
+    warnings += _size_warnings(table, raw_sample)
 
     book_s = pd.Series(b, index=variables, name="book")
     hedged_s = pd.Series(bh, index=variables, name="hedged")
     replay_m = replay_q = None
+    span = raw_sample.index if raw_sample is not None else None
     if factors is not None:
         missing = [v for v in variables if v not in factors.columns]
         if missing:
@@ -578,6 +738,10 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
         replay_m, replay_q = historical_replay(factors[variables], book_s, hedged_s,
                                                book_returns=book_returns, worst_k=worst_k,
                                                nav=float(nav))
+        if _unit(factors.index) == "quarters":   # the primary table holds quarters
+            replay_m, replay_q = None, replay_m
+        if span is None:
+            span = factors[variables].dropna().index
     return StressResult(
         factors=tuple(variables), nav=float(nav), confidence=float(confidence), table=table,
         shocks=shocks.set_axis(table.index), surprises=filled.set_axis(table.index),
@@ -585,4 +749,31 @@ def run_stress(book_betas: pd.Series, transform: pd.DataFrame, sigma_u: pd.DataF
         contributions_hedged=(shocks * bh).set_axis(table.index),
         replay_months=replay_m, replay_quarters=replay_q, recession=recession,
         book_betas=book_s, hedged_betas=hedged_s, warnings=tuple(warnings),
+        period_label=_unit(span) if span is not None else "months",
+        sample=_sample(span) if span is not None else None, sizes=size_detail,
     )
+
+
+def _size_warnings(table: pd.DataFrame, raw: pd.DataFrame | None) -> list[str]:
+    """One warning naming every scenario whose largest surprise is beyond the sample's
+    largest move (or beyond :data:`SIZE_WARN_SD` without the sample)."""
+    first = table[table["beyond_sample"]].drop_duplicates("scenario")  # same in both readings
+    if first.empty:
+        return []
+    beyond = ("the largest move of the sample in that direction" if raw is not None
+              else f"{SIZE_WARN_SD:g} sd")
+    if len(first) == 1:
+        r = first.iloc[0]
+        var = _variable_words(str(r["largest_sd_variable"]))
+        said = (f" ({r['sample_max_sd']:.1f} sd, {r['sample_max_date']}): a move the sample "
+                "never saw" if raw is not None else "")
+        return [f"scenario '{r['scenario']}' moves the {var} by {r['largest_sd']:.1f} sd of its "
+                f"innovation, beyond {beyond}{said}."]
+    parts = [f"'{r.scenario}' ({_variable_words(str(r.largest_sd_variable))} "
+             f"{r.largest_sd:.1f} sd"
+             + (f" against {r.sample_max_sd:.1f} sd at most, {r.sample_max_date})"
+                if raw is not None else ")")
+             for r in first.itertuples()]
+    tail = ": moves the sample never saw" if raw is not None else ""
+    return [f"{len(first)} scenarios move a variable by more standard deviations of its "
+            f"innovation than {beyond}{tail}: {'; '.join(parts)}."]

@@ -228,7 +228,8 @@ def test_batched_estimates_equal_the_stage_functions(demo):
     """The batched window betas and covariances equal hedgekit.exposures.time_series_betas
     and hedgekit.hedge.instrument_covariance (divisor T-1) run on each window by hand, for
     expanding and rolling windows and series with missing months."""
-    from hedgekit.backtest import _window_betas, _window_cov
+    from hedgekit.backtest.estimators import window_betas as _window_betas
+    from hedgekit.backtest.estimators import window_cov as _window_cov
     from hedgekit.exposures import time_series_betas
     from hedgekit.hedge import instrument_covariance
     from hedgekit.states import realtime_innovations
@@ -360,7 +361,7 @@ def test_quarterly_data_speak_of_quarters(demo):
     with pytest.raises(InputError, match=r"150 quarters of real-time factors .* 60 quarters"):
         walk_forward(states, book, inst, demo["sheet"], spec=demo["spec"], nav=NAV,
                      min_window=60, beta_min_obs=150, periods_per_year=4)
-    with pytest.raises(InputError, match=r"\[backtest\] min_months = 300: the state data "
+    with pytest.raises(InputError, match=r"\[backtest\] min_periods = 300: the state data "
                                          r"have only 160 complete quarters"):
         walk_forward(states, book, inst, demo["sheet"], spec=demo["spec"], nav=NAV,
                      min_window=300, beta_min_obs=20, periods_per_year=4)
@@ -400,8 +401,8 @@ def test_messages_name_the_configuration_key(demo):
     assert _message(e) == "[backtest] rebalance = 'weekly' is not a rebalance frequency."
     with pytest.raises(InputError) as e:
         walk_forward(*args, spec=demo["spec"], nav=NAV, min_window=200)
-    assert "[backtest] min_months = 200" in _message(e)
-    assert "[backtest] min_months or [exposures] min_obs" in e.value.fix
+    assert "[backtest] min_periods = 200" in _message(e)
+    assert "[backtest] min_periods or [exposures] min_obs" in e.value.fix
     with pytest.raises(InputError) as e:
         walk_forward(*args, **kw | {"nav": -5.0})
     assert _message(e) == "[portfolio] nav = -5.0: the NAV must be a positive number."
