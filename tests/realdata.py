@@ -8,11 +8,13 @@ one by the formula written beside it):
 - ``arch.data.default``: monthly Moody's AAA and BAA corporate bond yields, percent,
   1919-01 to 2018-12.
 - ``linearmodels.datasets.french``: monthly returns of 12 industry and 9 size/value portfolios
-  and RF, 1949-01 to 2017-03 (shipped in decimals; written here in percent, the unit of the
-  original factor library, so that every file shares one unit as ``[data] units`` requires
-  today).
+  and RF, 1949-01 to 2017-03, shipped in decimals and written in decimals.
 
-State variables (all percent in the file, ``units = "percent"`` in the config):
+Files keep their sources' units, as a user receives them: states and instruments in percent,
+assets in decimals; the config says so per file (``[data] units = { states = "percent",
+instruments = "percent", assets = "decimal" }``).
+
+State variables (percent in the file):
 ``mkt`` = Mkt-RF; ``term`` = AAA - 12 x RF, a term-spread PROXY (no Treasury long yield ships
 in these packages, so a long corporate yield stands in for the long rate); ``def`` = BAA - AAA;
 ``rf`` = 12 x RF, the bill return annualised by simple multiplication. No dividend yield ships
@@ -64,7 +66,7 @@ assets = "assets.csv"
 holdings = "holdings.csv"
 instruments = "instruments.csv"
 instrument_sheet = "instrument_sheet.csv"
-units = "percent"
+units = { states = "percent", instruments = "percent", assets = "decimal" }
 
 [portfolio]
 name = "Industry book (real data)"
@@ -122,15 +124,15 @@ def bond_yields() -> pd.DataFrame:
 
 
 def portfolios() -> pd.DataFrame:
-    """linearmodels' french portfolios in excess of RF, converted to percent."""
+    """linearmodels' french portfolios in excess of RF, in decimals as shipped."""
     from linearmodels.datasets import french
     raw = french.load()
     data = raw.drop(columns="dates").set_axis(_month_index(raw["dates"]))
-    return data[INDUSTRIES + SIZE_VALUE].sub(data["RF"], axis=0) * 100.0
+    return data[INDUSTRIES + SIZE_VALUE].sub(data["RF"], axis=0)
 
 
 def series() -> dict[str, pd.DataFrame]:
-    """Every frame the case writes, in percent, on a monthly PeriodIndex."""
+    """Every frame the case writes (states, instruments in percent; assets in decimals)."""
     ff = french_factors()
     yields = bond_yields()
     both = ff.join(yields, how="inner")

@@ -2,7 +2,7 @@
 
 Open data bundled with arch (``frenchdata``: Mkt-RF, SMB, HML, RF; ``default``: Moody's AAA and
 BAA yields) and linearmodels (``french``: industry and size/value portfolios), written as a user
-receives them (percent, ``[data] units = "percent"``), run by ``hedgekit run CONFIG --json`` in a
+receives them (states and instruments in percent, assets in decimals, ``[data] units`` per file), run by ``hedgekit run CONFIG --json`` in a
 subprocess. Each check names its outside source. What the run's headline says about this case,
 and which of its numbers mislead, is written up in docs/real-data.md.
 """
@@ -34,7 +34,7 @@ def case(tmp_path_factory):
     folder = tmp_path_factory.mktemp("realdata")
     config = realdata.build(folder)
     env = dict(os.environ, PYTHONPATH=str(ROOT), NO_COLOR="1")
-    proc = subprocess.run([sys.executable, "-m", "hedgekit.cli", "run", str(config), "--json"],
+    proc = subprocess.run([sys.executable, "-m", "hedgekit.cli", "run", str(config), "--json", "--no-backtest"],
                           capture_output=True, text=True, cwd=folder, env=env, timeout=600)
     payload = json.loads(proc.stdout) if proc.returncode in (0, 3) and proc.stdout.strip() else None
     return folder, proc, payload
@@ -50,7 +50,7 @@ def _states(folder: Path) -> pd.DataFrame:
 def _book_and_factors(folder: Path, payload: dict) -> tuple[pd.Series, pd.DataFrame]:
     """The book's return (holdings-weighted industry returns, cash at zero) and the run's factors:
     the market excess return and the orthogonal innovations the run wrote, on common months."""
-    assets = pd.read_csv(folder / "assets.csv", index_col="date") / 100.0
+    assets = pd.read_csv(folder / "assets.csv", index_col="date")
     assets.index = pd.PeriodIndex(assets.index, freq="M", name="date")
     weights = pd.Series(realdata.HOLDINGS)
     book = assets[weights.index].to_numpy() @ weights.to_numpy()
@@ -88,7 +88,7 @@ def test_input_files_keep_the_sources_numbers(case):
     np.testing.assert_allclose(states["def"].to_numpy(), spread.reindex(states.index).to_numpy(), atol=1e-9)
     lm = french.load()
     assets = pd.read_csv(folder / "assets.csv", index_col="date")
-    np.testing.assert_allclose(assets["NoDur"].to_numpy() / 100.0, (lm["NoDur"] - lm["RF"]).to_numpy(),
+    np.testing.assert_allclose(assets["NoDur"].to_numpy(), (lm["NoDur"] - lm["RF"]).to_numpy(),
                                atol=1e-11)
 
 
@@ -155,7 +155,7 @@ def test_premia_match_linearmodels_fama_macbeth(case):
     error (``cov_type="kernel"``, Bartlett, bandwidth = the run's lags; Newey and West 1987)."""
     folder, _, payload = case
     pr, ex = payload["premia"], payload["exposures"]
-    assets = pd.read_csv(folder / "assets.csv", index_col="date") / 100.0
+    assets = pd.read_csv(folder / "assets.csv", index_col="date")
     factors = ex["factors"]
     betas = pd.DataFrame(ex["assets"]).T[factors]
     long = assets.stack().rename("y").reset_index()
