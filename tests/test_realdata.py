@@ -194,3 +194,41 @@ def test_headline_numbers_are_in_sane_units(case):
     before = h["exposure_before"]
     for f in ("term", "def"):  # whole contracts must not leave a target worse than unhedged
         assert abs(rounded[f]) <= abs(before[f]) + 1e-12, (f, rounded[f], before[f])
+
+
+def _hashes(folder: Path) -> dict[str, str]:
+    import hashlib
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in folder.iterdir() if p.is_file()}
+
+
+def test_validate_and_states_command_exit_zero(case, capsys):
+    """The outside contract (docs/interface.md): ``validate`` reads every file and ``states``
+    needs the states file only; both exit 0 on the real files."""
+    from hedgekit.cli import main
+    folder = case[0]
+    config = folder / "realdata.toml"
+    assert main(["validate", str(config), "--json"]) == 0, capsys.readouterr().err
+    capsys.readouterr()
+    assert main(["states", str(config), "--json"]) == 0, capsys.readouterr().err
+    out = json.loads(capsys.readouterr().out)
+    assert out["variables"] == realdata.ORDER  # a stage command writes its stage at the top level
+
+
+def test_percent_files_declared_decimal_are_refused(case, tmp_path, capsys):
+    """Issue 11 items 2-3 on real files (thresholds: docs/interface.md, common practice): the
+    percent states file declared decimal is exit 2 naming the file, a column and the fix, and
+    no input file changes."""
+    import shutil
+
+    from hedgekit.cli import main
+    folder = tmp_path / "case"
+    shutil.copytree(case[0], folder, ignore=shutil.ignore_patterns("report*", "*.sqlite"))
+    config = folder / "realdata.toml"
+    config.write_text(config.read_text().replace(
+        'units = { states = "percent", instruments = "percent", assets = "decimal" }', 'units = "decimal"'))
+    before = _hashes(folder)
+    assert main(["validate", str(config)]) == 2
+    err = capsys.readouterr().err
+    assert "states.csv" in err and "percent" in err and "Traceback" not in err
+    assert any(f"'{c}'" in err or f"column {c}" in err for c in realdata.ORDER), err
+    assert _hashes(folder) == before
