@@ -152,24 +152,36 @@ def test_premia_match_linearmodels_fama_macbeth(case):
     """linearmodels panel ``FamaMacBeth`` fed the run's own full-sample betas (Fama and MacBeth
     1973): the monthly cross-sections' mean (for the factors priced by the cross-section), the
     plain error sd(gamma_t)/sqrt(T) from linearmodels' per-period estimates, and the Newey-West
-    error (``cov_type="kernel"``, Bartlett, bandwidth = the run's lags; Newey and West 1987)."""
+    error (``cov_type="kernel"``, Bartlett, bandwidth = the run's lags; Newey and West 1987).
+    A factor priced by its mean joins the test assets with a unit beta on itself and the
+    cross-section prices R_t - B_traded f_traded,t on the other betas (Lewellen, Nagel and
+    Shanken 2010), so the reference is fed exactly that panel."""
     folder, _, payload = case
     pr, ex = payload["premia"], payload["exposures"]
     assets = pd.read_csv(folder / "assets.csv", index_col="date")
     factors = ex["factors"]
     betas = pd.DataFrame(ex["assets"]).T[factors]
+    route = pr.get("lambda_route", {})
+    traded = [f for f in factors if route.get(f) == "mean"]
+    cs = [f for f in factors if f not in traded]
+    if traded:  # traded factors join the test assets with a unit beta on themselves (LNS 2010)
+        own = realdata.french_factors()["MktRF"].rename("mkt") / 100.0
+        assert traded == ["mkt"]
+        assets[f"factor:{traded[0]}"] = own.reindex(pd.PeriodIndex(assets.index, freq="M")).to_numpy()
+        betas.loc[f"factor:{traded[0]}"] = [1.0 if f == traded[0] else 0.0 for f in factors]
+        # the cross-section prices the rest: R_t - B_traded f_traded,t on [1, B_rest]
+        f_tr = assets[f"factor:{traded[0]}"]
+        assets = assets - np.outer(f_tr, betas.loc[assets.columns, traded[0]])
     long = assets.stack().rename("y").reset_index()
     long.columns = ["date", "asset", "y"]
     long["time"] = pd.to_datetime(long["date"])
-    long = long.merge(betas.rename_axis("asset").reset_index(), on="asset")
+    long = long.merge(betas[cs].rename_axis("asset").reset_index(), on="asset")
     long = long.set_index(["asset", "time"]).sort_index()
     long["const"] = 1.0
-    kernel = FamaMacBeth(long["y"], long[["const", *factors]]).fit(cov_type="kernel",
-                                                                    bandwidth=pr["nw_lags"])
+    kernel = FamaMacBeth(long["y"], long[["const", *cs]]).fit(cov_type="kernel", bandwidth=pr["nw_lags"])
     gammas = kernel.all_params  # one row per cross-section
     plain_se = gammas.std(ddof=1) / math.sqrt(len(gammas))  # Fama and MacBeth 1973: S / T
-    route = pr.get("lambda_route", {})
-    names = [n for n in pr["factors"] if route.get(n, "cross-section") == "cross-section"]
+    names = ["const", *cs] if pr["intercept"] else cs
     assert len(gammas) == pr["n_periods"]
     np.testing.assert_allclose([pr["lambda"][n] for n in names], kernel.params[names], rtol=0, atol=1e-8)
     np.testing.assert_allclose([pr["se_fm"][n] for n in names], plain_se[names], rtol=1e-8)
