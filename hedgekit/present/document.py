@@ -279,6 +279,11 @@ def _effectiveness_lines(run: Mapping) -> list[str]:
             else:
                 parts.append(f"{f} {pct(v, 1)}" + (" (the hedge made it worse)" if v < 0 else ""))
         out.append("Effectiveness by neutralised factor: " + "; ".join(parts) + ".")
+        worse = [(str(f), num(v)) for f, v in by_factor.items()
+                 if str(f) not in neutral and num(v) is not None and num(v) < 0]
+        if worse:
+            out.append("Made more volatile by the overlay out of sample (not neutralised): "
+                       + "; ".join(f"{f} {pct(v, 1)}" for f, v in sorted(worse, key=lambda kv: kv[1])) + ".")
     return out
 
 
@@ -547,7 +552,7 @@ def book_premium_table(run: Mapping) -> Table | None:
 
 # --------------------------------------------------------------------------- hedge
 
-def ticket_table(run: Mapping) -> Table | None:
+def ticket_table(run: Mapping, *, narrow: bool = False) -> Table | None:
     hedge = run.get("hedge") or {}
     ticket = hedge.get("ticket") or {}
     if not isinstance(ticket, Mapping) or not ticket:
@@ -560,14 +565,14 @@ def ticket_table(run: Mapping) -> Table | None:
         n, unit = num(r.get("contracts")), num(r.get("contract_value"))
         side = "excluded" if r.get("excluded") else _side(n)
         row = [str(name), side, contracts(n), pct(r.get("weight_rounded"), 2),
-               money(None if n is None or unit is None else n * unit, short=True), money(unit, short=True),
-               pct(r.get("weight"), 2)]
+               money(None if n is None or unit is None else n * unit, short=True),
+               *(() if narrow else (money(unit, short=True),)), pct(r.get("weight"), 2)]
         if has_current:
             row += [pct(r.get("current"), 2), pct(r.get("trade_rounded"), 2)]
         row.append(money(r.get("cost")))
         rows.append(tuple(row))
-    cols = ["Instrument", "Side", "Contracts", "Weight of NAV, whole contracts",
-            f"Notional, {ccy}".rstrip(", "), f"Contract value, {ccy}".rstrip(", "), "Continuous weight"]
+    cols = ["Instrument", "Side", "Contracts", "Weight of NAV, whole contracts", f"Notional, {ccy}".rstrip(", "),
+            *(() if narrow else (f"Contract value, {ccy}".rstrip(", "),)), "Continuous weight"]
     if has_current:
         cols += ["Current weight", "Trade, whole contracts"]
     cols.append(f"Cost, {ccy}".rstrip(", "))
@@ -622,7 +627,7 @@ def side_effects_table(run: Mapping) -> Table | None:
                   "Side effects: exposures the overlay moves by more than their standard error")
 
 
-def hedge_section(run: Mapping) -> Section | None:
+def hedge_section(run: Mapping, *, detail: bool = False) -> Section | None:
     hedge = run.get("hedge") or {}
     if not hedge:
         return None
@@ -636,7 +641,7 @@ def hedge_section(run: Mapping) -> Section | None:
         blocks.append(Para(str(b), "alert"))
     if hedge.get("message"):
         blocks.append(Para(str(hedge["message"]), "note"))
-    for t in (ticket_table(run), hedge_exposure_table(run), side_effects_table(run)):
+    for t in (ticket_table(run, narrow=detail), hedge_exposure_table(run), side_effects_table(run)):
         if t is not None:
             blocks.append(t)
     facts = [x for x in (_zero_legs_line(hedge),) if x] + _side_effect_lines(hedge)[1:]
@@ -671,29 +676,40 @@ def hedge_section(run: Mapping) -> Section | None:
 
 # --------------------------------------------------------------------------- stress
 
-def scenario_table(run: Mapping) -> Table | None:
+def scenario_table(run: Mapping, *, narrow: bool = False) -> list[Table]:
+    """The scenarios: sizes in sd beside the sample's largest move, P&L as held and with the
+    overlay, the recorded intervals (in a second table when ``narrow``, for the terminal)."""
     stress = run.get("stress") or {}
     rows_in = [r for r in stress.get("scenarios") or [] if isinstance(r, Mapping)]
     if not rows_in:
-        return None
+        return []
     ccy = _ccy(run) or "currency"
     label = interval_name(_meta(run), stress)
-    rows = []
+    main, spans = [], []
     for r in rows_in:
         held, hedged = _scenario_pnl(r, "unhedged"), _scenario_pnl(r, "hedged")
-        rows.append((scenario_label(r), str(r.get("reading") or DASH), fmt(r.get("largest_sd"), 1),
-                     fmt(r.get("sample_max_sd"), 1), pct(held.get("return")),
-                     money(held.get("currency"), short=True), interval(held.get("interval") or held, 2,
-                                                                       percent=True),
-                     pct(hedged.get("return")), money(hedged.get("currency"), short=True),
-                     interval(hedged.get("interval") or hedged, 2, percent=True)))
-    return _table(("Scenario", "Reading", "Size, sd", "Largest in sample, sd", "As held, % of NAV",
-                   f"As held, {ccy}", label, "With the overlay, % of NAV", f"With the overlay, {ccy}", label),
-                  rows, "Stress scenarios", numeric=(False, False) + (True,) * 8,
-                  note="Size: the surprise in standard deviations of the innovation it shocks, beside the "
-                       "largest such move in the sample. Intervals from the estimation error of the "
-                       "betas only. 'isolated': the other state variables do not move; 'comove': they "
-                       "move by their typical co-movement with the named ones.")
+        name, reading = scenario_label(r), str(r.get("reading") or DASH)
+        iv_held = interval(held.get("interval") or held, 2, percent=True)
+        iv_hedged = interval(hedged.get("interval") or hedged, 2, percent=True)
+        main.append((name, reading, fmt(r.get("largest_sd"), 1), fmt(r.get("sample_max_sd"), 1),
+                     pct(held.get("return")), money(held.get("currency"), short=True),
+                     *(() if narrow else (iv_held,)), pct(hedged.get("return")),
+                     money(hedged.get("currency"), short=True), *(() if narrow else (iv_hedged,))))
+        spans.append((name, reading, iv_held, iv_hedged))
+    cols = ("Scenario", "Reading", "Size, sd", "Largest in sample, sd", "As held, % of NAV",
+            f"As held, {ccy}", *(() if narrow else (label,)), "With the overlay, % of NAV",
+            f"With the overlay, {ccy}", *(() if narrow else (label,)))
+    note = ("Size: the surprise in standard deviations of the innovation it shocks, beside the largest "
+            "such move in the sample. 'isolated': the other state variables do not move; 'comove': they "
+            "move by their typical co-movement with the named ones.")
+    ivnote = "Intervals from the estimation error of the betas only."
+    out = [_table(cols, main, "Stress scenarios", numeric=(False, False) + (True,) * (len(cols) - 2),
+                  note=note + ("" if narrow else " " + ivnote))]
+    if narrow:
+        out.append(_table(("Scenario", "Reading", f"As held, {label}", f"With the overlay, {label}"), spans,
+                          "Stress scenarios: intervals of the P&L (% of NAV)",
+                          numeric=(False, False, True, True), note=ivnote))
+    return out
 
 
 def replay_table(run: Mapping) -> Table | None:
@@ -717,8 +733,8 @@ def replay_table(run: Mapping) -> Table | None:
 
 def stress_section(run: Mapping, *, detail: bool = False) -> Section | None:
     stress = run.get("stress") or {}
-    table = scenario_table(run)
-    if table is None:
+    tables = scenario_table(run, narrow=detail)
+    if not tables:
         return None
     from . import plots
     rows = [r for r in stress.get("scenarios") or [] if isinstance(r, Mapping)]
@@ -730,7 +746,7 @@ def stress_section(run: Mapping, *, detail: bool = False) -> Section | None:
         blocks.append(Plot("stress", "Scenario P&L of the book as held and with the overlay (labels as in "
                                      "the table, with the reading).",
                            lambda: plots.stress_chart(chart, unit="% of NAV")))
-    blocks.append(table)
+    blocks += tables
     replay = replay_table(run)
     if replay is not None:
         blocks.append(replay)

@@ -44,10 +44,11 @@ def table(title: str, columns: Sequence[str], rows: Iterable[Sequence[Any]], *, 
                   title_style="" if plain else "bold cyan", pad_edge=False, min_width=len(title) + 2)
     numeric = tuple(numeric) if numeric is not None else (False,) + (True,) * (len(columns) - 1)
     for i, c in enumerate(columns):
-        if i == 0:  # names wrap rather than squeeze the numbers out
+        if i == 0:  # long names wrap rather than squeeze the numbers out
             t.add_column(c, justify="left", max_width=34 if len(columns) > 4 else None, overflow="fold")
         else:
-            t.add_column(c, justify="right" if numeric[i] else "left", no_wrap=numeric[i])
+            # a number too wide for its column folds onto a second line; it is never cut short
+            t.add_column(c, justify="right" if numeric[i] else "left", overflow="fold")
     for row in rows:
         t.add_row(*[v if isinstance(v, str) else fmt(v) for v in row])
     return t
@@ -156,7 +157,7 @@ def show_hedge(con: Console, hedge: Mapping, meta: Mapping | None = None) -> Non
     run = _run(meta, hedge=hedge)
     if not run["meta"].get("factors") and hedge.get("exposure_before"):
         run["meta"]["factors"] = list(hedge["exposure_before"])
-    sec = doc.hedge_section(run)
+    sec = doc.hedge_section(run, detail=True)
     if sec is not None:
         print_blocks(con, sec.blocks)
 
@@ -239,7 +240,7 @@ def show_run(con: Console, run: Mapping) -> None:
     for w in run.get("warnings") or []:
         con.print(f"note: {w}", markup=False)
     _heading(con, "Detail")
-    for sec in (doc.hedge_section(run), doc.stress_section(run, detail=True), doc.premia_section(run),
+    for sec in (doc.hedge_section(run, detail=True), doc.stress_section(run, detail=True), doc.premia_section(run),
                 doc.backtest_section(run, detail=True)):
         if sec is not None:
             print_blocks(con, sec.blocks)
