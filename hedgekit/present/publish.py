@@ -26,6 +26,7 @@ a number, are left as they are.
 from __future__ import annotations
 
 import contextlib
+import csv
 import os
 import re
 import secrets
@@ -87,7 +88,20 @@ def csv_text(frame: pd.DataFrame | pd.Series, *, index: bool = True, float_forma
     """A frame as formula-safe CSV text (periods as ``YYYY-MM``, ``\\n`` line ends)."""
     if isinstance(frame, pd.Series):
         frame = frame.to_frame()
-    return safe_frame(frame).to_csv(index=index, lineterminator="\n", float_format=float_format)
+    safe = safe_frame(frame)
+    # Python's csv writer (3.11) leaves a lone carriage return unquoted when lines end in "\n";
+    # a table holding one quotes every text cell, so no row is split in a spreadsheet.
+    quoting = csv.QUOTE_NONNUMERIC if _has_cr(safe, index) else csv.QUOTE_MINIMAL
+    return safe.to_csv(index=index, lineterminator="\n", float_format=float_format, quoting=quoting)
+
+
+def _has_cr(frame: pd.DataFrame, index: bool) -> bool:
+    texts = [*map(str, frame.columns), *(map(str, frame.index) if index else ())]
+    for col in range(frame.shape[1]):
+        s = frame.iloc[:, col]
+        if s.dtype == object or pd.api.types.is_string_dtype(s):
+            texts += [v for v in s if isinstance(v, str)]
+    return any("\r" in t for t in texts)
 
 
 # --------------------------------------------------------------------------- single files
