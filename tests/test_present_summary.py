@@ -103,7 +103,7 @@ def test_effectiveness_by_factor_negative_called_out_and_null_explained() -> Non
     table = next(b for b in sec.blocks if isinstance(b, document.Table) and "by factor" in b.caption)
     rows = {r[0]: r for r in table.rows}
     assert rows["rf"][2] == document.DASH and rows["rf"][3] == "unhedged variance near zero"
-    assert rows["def"][3] == "made worse by the hedge"
+    assert rows["def"][3] == "the overlay added variance"
     assert "\u22123,142" not in "".join(_texts(run))
 
 

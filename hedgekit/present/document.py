@@ -239,11 +239,10 @@ def _premium_line(run: Mapping) -> str | None:
         return None
     label = interval_name(_meta(run), hedge)
     iv = hedge.get("premium_given_up_interval")
-    ci = f" ({label} {interval(iv, 2, percent=True)})" if interval(iv) != DASH else ""
     distinct = hedge.get("premium_given_up_distinct_from_zero")
+    ci = f", {label} {interval(iv, 2, percent=True)}" if interval(iv) != DASH else ""
     if distinct is False:
-        return (f"Premium given up by the overlay: cannot be told from zero (estimate "
-                f"{pct(value)} a year{ci}).")
+        return f"Premium given up by the overlay: cannot be told from zero ({pct(value)} a year{ci})."
     return f"Premium given up by the overlay: {pct(value)} a year{ci}."
 
 
@@ -341,44 +340,62 @@ def summary_section(run: Mapping) -> Section:
     return Section("summary", "Summary", tuple(blocks))
 
 
+def _book_inference(run: Mapping) -> tuple[Mapping, str, str]:
+    """Where the book's t, marks and interval are recorded: the exposure stage's ``portfolio_*``
+    keys, else the hedge stage's ``exposure_before_*`` (the same betas); the key prefix and
+    the interval label of that stage."""
+    meta, ex, hedge = _meta(run), run.get("exposures") or {}, run.get("hedge") or {}
+    if ex.get("portfolio_interval") or ex.get("portfolio_t") or not hedge.get("exposure_before_interval"):
+        return ex, "portfolio", interval_name(meta, ex)
+    return hedge, "exposure_before", interval_name(meta, hedge)
+
+
+def _mark_note(rows: Sequence[Sequence[str]]) -> str:
+    return ("Marks: *** p < 1 %, ** p < 5 %, * p < 10 % (two-sided). "
+            if any("*" in c for r in rows for c in r) else "")
+
+
 def headline_table(run: Mapping) -> Table:
     """Headline exposures: the book, its premium, and what the whole-contract overlay leaves."""
     meta, ex = _meta(run), run.get("exposures") or {}
     hedge, premia = run.get("hedge") or {}, run.get("premia") or {}
     book_premium = premia.get("book_premium") or {}
     rounded = hedge.get("exposure_after_rounded") or {}
-    label_ex = interval_name(meta, ex)
+    src, key, label_ex = _book_inference(run)
     label_h = interval_name(meta, hedge)
     rows = []
     for f in factor_names(run):
         bpm = book_premium.get(f) or {}
-        rows.append((f, marked(get(ex, "portfolio", f), get(ex, "portfolio_marks", f)),
-                     fmt(get(ex, "portfolio_t", f), 2), interval(get(ex, "portfolio_interval", f)),
+        rows.append((f, marked(get(ex, "portfolio", f), get(src, f"{key}_marks", f)),
+                     fmt(get(src, f"{key}_t", f), 2), interval(get(src, f"{key}_interval", f)),
                      (pct(bpm.get("premium_annual")) + (bpm.get("marks") or "")) if bpm else DASH,
                      marked(rounded.get(f), get(hedge, "exposure_after_rounded_marks", f)) if rounded else DASH,
                      interval(get(hedge, "exposure_after_rounded_interval", f))))
+    note = _mark_note(rows)
+    if book_premium:
+        note += "Premium earned: the book's beta times the estimated price of risk. "
+    if rounded:
+        note += "The overlay column is what the whole contracts of the ticket leave."
     return _table(("Factor", "Exposure (beta)", "t", label_ex, "Premium earned a year",
                    "With the overlay, whole contracts", label_h), rows,
-                  "Headline exposures of the book",
-                  note="Marks: *** p < 1 %, ** p < 5 %, * p < 10 % (two-sided), where the record gives "
-                       "them. Premium earned: the book's beta times the estimated price of risk. The "
-                       "overlay column is what the whole contracts of the ticket leave.")
+                  "Headline exposures of the book", note=note.strip())
 
 
 # --------------------------------------------------------------------------- exposures
 
 def book_exposure_table(run: Mapping) -> Table:
     meta, ex, hedge = _meta(run), run.get("exposures") or {}, run.get("hedge") or {}
+    src, key, label_ex = _book_inference(run)
     rows = []
     for f in factor_names(run):
-        rows.append((f, marked(get(ex, "portfolio", f), get(ex, "portfolio_marks", f)),
-                     fmt(get(ex, "portfolio_se", f)), fmt(get(ex, "portfolio_t", f), 2),
-                     fmt(get(ex, "portfolio_p", f), 3), interval(get(ex, "portfolio_interval", f)),
+        rows.append((f, marked(get(ex, "portfolio", f), get(src, f"{key}_marks", f)),
+                     fmt(get(ex, "portfolio_se", f)), fmt(get(src, f"{key}_t", f), 2),
+                     fmt(get(src, f"{key}_p", f), 3), interval(get(src, f"{key}_interval", f)),
                      marked(get(hedge, "exposure_after_rounded", f),
                             get(hedge, "exposure_after_rounded_marks", f)),
                      interval(get(hedge, "exposure_after_rounded_interval", f))))
     hac = ex.get("hac_lags")
-    return _table(("Factor", "Exposure", "Std. error", "t", "p", interval_name(meta, ex),
+    return _table(("Factor", "Exposure", "Std. error", "t", "p", label_ex,
                    "With the overlay, whole contracts", interval_name(meta, hedge)), rows,
                   f"Book exposures ({ex.get('portfolio_source') or 'book'})"
                   + (f", {sample_text(ex, meta)}" if sample_text(ex, meta) else ""),
@@ -699,9 +716,11 @@ def scenario_table(run: Mapping, *, narrow: bool = False) -> list[Table]:
     cols = ("Scenario", "Reading", "Size, sd", "Largest in sample, sd", "As held, % of NAV",
             f"As held, {ccy}", *(() if narrow else (label,)), "With the overlay, % of NAV",
             f"With the overlay, {ccy}", *(() if narrow else (label,)))
-    note = ("Size: the surprise in standard deviations of the innovation it shocks, beside the largest "
-            "such move in the sample. 'isolated': the other state variables do not move; 'comove': they "
-            "move by their typical co-movement with the named ones.")
+    beside = (", beside the largest such move in the sample"
+              if any(num(r.get("sample_max_sd")) is not None for r in rows_in) else "")
+    note = (f"Size: the surprise in standard deviations of the innovation it shocks{beside}. 'isolated': "
+            "the other state variables do not move; 'comove': they move by their typical co-movement "
+            "with the named ones.")
     ivnote = "Intervals from the estimation error of the betas only."
     out = [_table(cols, main, "Stress scenarios", numeric=(False, False) + (True,) * (len(cols) - 2),
                   note=note + ("" if narrow else " " + ivnote))]
@@ -733,7 +752,7 @@ def replay_table(run: Mapping) -> Table | None:
 
 def stress_section(run: Mapping, *, detail: bool = False) -> Section | None:
     stress = run.get("stress") or {}
-    tables = scenario_table(run, narrow=detail)
+    tables = scenario_table(run, narrow=True)
     if not tables:
         return None
     from . import plots
@@ -772,7 +791,8 @@ def backtest_section(run: Mapping, *, detail: bool = False) -> Section | None:
         blocks.append(Plot("backtest", f"Walk-forward check: cumulative excess return (sum of {one}ly "
                                        "returns) of the book as held and with the overlay, each decision "
                                        "made with data up to its rebalance date only.",
-                           lambda: plots.backtest_chart(series["dates"], drawn)))
+                           lambda: plots.backtest_chart(series["dates"], drawn,
+                                                        ylabel="cumulative excess return")))
     facts: list[tuple[str, str]] = []
     if num(bt.get("effectiveness")) is not None:
         facts.append(("Hedge effectiveness, all state-driven P&L", pct(bt["effectiveness"], 1)))
@@ -808,7 +828,7 @@ def backtest_section(run: Mapping, *, detail: bool = False) -> Section | None:
         for f, v in by_factor.items():
             val = num(v)
             remark = (str(notes.get(f) or "no figure given") if val is None
-                      else "made worse by the hedge" if val < 0 else "")
+                      else "the overlay added variance" if val < 0 else "")
             rows.append((str(f), "yes" if f in neutral else "no", pct(val, 1), remark))
         blocks.append(_table(("Factor", "Neutralised", "Effectiveness", "Remark"), rows,
                              "Out-of-sample effectiveness by factor", numeric=(False, False, True, False),
