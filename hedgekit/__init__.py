@@ -10,7 +10,7 @@ objects and frozen results):
 - :mod:`hedgekit.premia`    Fama-MacBeth prices of risk, Shanken correction
 - :mod:`hedgekit.hedge`     the overlay optimiser and its ticket
 - :mod:`hedgekit.stress`    scenario P&L; :mod:`hedgekit.backtest` walk-forward check
-- :mod:`hedgekit.report`    HTML/Markdown report; :mod:`hedgekit.store` run history
+- :mod:`hedgekit.present`   terminal, HTML/Markdown report; :mod:`hedgekit.store` run history
 
 Output is decision support, not investment advice.
 """
@@ -33,7 +33,7 @@ _LAZY = {
     "HedgeSpec": "hedge", "design_overlay": "hedge", "instrument_covariance": "hedge",
     "OverlayProblem": "hedge",
     "run_stress": "stress", "walk_forward": "backtest",
-    "write_report": "report", "RunStore": "store",
+    "publish_report": "present.report", "RunStore": "store",
     "run_all": "pipeline",
 }
 

@@ -1,7 +1,7 @@
 """Command line: ``hedgekit COMMAND CONFIG [options]``.
 
 Only wiring lives here: parse arguments, call :mod:`hedgekit.pipeline`, print with
-:mod:`hedgekit.display`, map errors to exit codes (0 done, 1 other, 2 bad input,
+:mod:`hedgekit.present.terminal`, map errors to exit codes (0 done, 1 other, 2 bad input,
 3 hedge targets unreachable). ``--json`` prints one JSON object on stdout and nothing
 else there; notes go to stderr.
 """

@@ -11,11 +11,14 @@ from pathlib import Path
 
 import pandas as pd
 
-from . import display, pipeline
+from . import pipeline
 from .config import load_config
 from .errors import InputError
-from .files import atomic_write_csv
 from .inputs import load_dataset
+from .present import terminal
+from .present.publish import build_tables
+from .present.report import build_report
+from .record import run_meta as meta_of
 
 # Which data files each command reads (the rest are not touched).
 NEEDS = {
@@ -35,7 +38,7 @@ def _note(msg: str) -> None:
 
 
 def _console(args):
-    return display.make_console()
+    return terminal.make_console()
 
 
 def _write_tables(args, tables: dict[str, pd.DataFrame]) -> None:
@@ -44,9 +47,7 @@ def _write_tables(args, tables: dict[str, pd.DataFrame]) -> None:
     folder = Path(args.out)
     if folder.exists() and not folder.is_dir():
         raise InputError("--out must name a folder, not a file.", file=str(folder))
-    for name, frame in tables.items():
-        if frame is not None:
-            atomic_write_csv(frame, folder / f"{name}.csv")
+    build_tables(tables, folder).publish()
     _note(f"tables written to {folder}/: {', '.join(f'{n}.csv' for n, f in tables.items() if f is not None)}")
 
 
@@ -80,7 +81,7 @@ def cmd_states(args):
                          "remove [data] factors to estimate the states.", file=str(config.path))
     res = fs.states
     if not args.json:
-        display.show_states(_console(args), res)
+        terminal.show_states(_console(args), res.to_dict(), meta_of(config, data, fs))
     for w in res.warnings:
         _note(f"warning: {w}")
     _write_tables(args, {"innovations_raw": res.raw, "innovations_orthogonal": res.orthogonal,
@@ -93,13 +94,13 @@ def cmd_exposures(args):
     st = pipeline.run_stages(config, data, "exposures")
     res = st.exposures
     _print_notes(st.factor_set.states, res)
-    impacts = pipeline.surprise_impacts(res, st.factor_set, config["portfolio"]["nav"])
+    payload = res.to_dict()
     if not args.json:
-        display.show_exposures(_console(args), res, st.factor_set, config, impacts)
+        terminal.show_exposures(_console(args), payload, meta_of(config, data, st.factor_set))
     _write_tables(args, {"exposures_book": res.to_frame(), "exposures_assets": res.assets.to_frame(),
                          "exposures_instruments": res.instruments.to_frame() if res.instruments is not None else None,
-                         "exposures_rolling_book": res.rolling_book, "exposures_per_surprise": impacts})
-    return {**res.to_dict(), "per_surprise": impacts.to_dict(orient="index")}, 0
+                         "exposures_rolling_book": res.rolling_book})
+    return payload, 0
 
 
 def cmd_premia(args):
@@ -108,7 +109,7 @@ def cmd_premia(args):
     res = st.premia
     _print_notes(st.factor_set.states, st.exposures, res)
     if not args.json:
-        display.show_premia(_console(args), res, st.exposures, data.periods_per_year)
+        terminal.show_premia(_console(args), res.to_dict(), meta_of(config, data, st.factor_set))
     _write_tables(args, {"premia": res.to_frame(), "pricing_errors": res.pricing_errors.to_frame("pricing_error"),
                          "premia_monthly": res.gamma})
     return res.to_dict(), 0
@@ -128,8 +129,8 @@ def cmd_hedge(args):
     _print_notes(st.factor_set.states, st.exposures, st.premia, res)
     if not args.json:
         con = _console(args)
-        display.show_hedge(con, res, config)
-        display.print_cautions(con)
+        terminal.show_hedge(con, res.to_dict(), meta_of(config, data, st.factor_set))
+        terminal.print_cautions(con)
     _write_tables(args, {"hedge_ticket": res.to_frame()})
     return res.to_dict(), _hedge_code(res)
 
@@ -145,8 +146,8 @@ def cmd_stress(args):
     _print_notes(st.factor_set.states, st.exposures, st.premia, st.hedge, res)
     if not args.json:
         con = _console(args)
-        display.show_stress(con, res, config)
-        display.print_cautions(con)
+        terminal.show_stress(con, res.to_dict(), meta_of(config, data, st.factor_set))
+        terminal.print_cautions(con)
     _write_tables(args, {"stress": res.to_frame(), "replay_months": res.replay_months,
                          "replay_quarters": res.replay_quarters})
     return res.to_dict(), 0
@@ -154,14 +155,15 @@ def cmd_stress(args):
 
 def cmd_backtest(args):
     config, data = _load(args, "backtest")
-    ex = pipeline.run_stages(config, data, "exposures").exposures
-    with display.progress_bar("walk-forward") as tick:
+    st = pipeline.run_stages(config, data, "exposures")
+    ex = st.exposures
+    with terminal.progress_bar("walk-forward") as tick:
         res = pipeline.run_backtest_stage(config, data, ex, progress=tick, rebalance=args.rebalance)
     _print_notes(ex, res)
     if not args.json:
         con = _console(args)
-        display.show_backtest(con, res, config)
-        display.print_cautions(con)
+        terminal.show_backtest(con, res.to_dict(), meta_of(config, data, st.factor_set))
+        terminal.print_cautions(con)
     _write_tables(args, {"backtest_periods": res.to_frame()})
     return res.to_dict(), 0
 
@@ -213,13 +215,18 @@ def finish_run(config, run, *, store: bool = True, name: str = "report") -> tupl
     if storing and store_path.exists():  # the store is created only when a run is recorded
         from .store import RunStore
         payload["history"] = RunStore(store_path).compare_with_previous(payload, config["store"]["change_threshold"])
-    from .report import write_report
-    report_paths = write_report(payload, Path(config["report"]["output"]),
-                                formats=tuple(config["report"]["formats"]), name=name)
+    staged = build_report(payload, Path(config["report"]["output"]),
+                          formats=tuple(config["report"]["formats"]), name=name)
+    report_paths = staged.paths
     payload["report"] = {k: str(v) for k, v in report_paths.items()}
-    if storing:
-        from .store import RunStore
-        payload["run_id"] = RunStore(store_path).record(payload, config.text, str(report_paths.get("html", "")))
+    try:  # the run is recorded first; the report is published only when the record is in
+        if storing:
+            from .store import RunStore
+            payload["run_id"] = RunStore(store_path).record(payload, config.text, str(report_paths.get("html", "")))
+    except BaseException:
+        staged.discard()
+        raise
+    staged.publish()
     code = 0 if run.hedge is None or run.hedge.status == "optimal" else 3
     return payload, code, report_paths
 
@@ -236,7 +243,7 @@ def _whole_job(args, config_path: Path, *, earlier: bool = False):
     if args.json:
         for w in data.warnings:
             _note(f"note: {w}")
-    with display.progress_bar("walk-forward") as tick:
+    with terminal.progress_bar("walk-forward") as tick:
         run = pipeline.run_all(config, data=data, backtest=not getattr(args, "no_backtest", False),
                                closest=getattr(args, "closest", False), progress=lambda s: _note(f"... {s}"),
                                backtest_progress=tick)
@@ -246,8 +253,7 @@ def _whole_job(args, config_path: Path, *, earlier: bool = False):
     _write_tables(args, _run_tables(run))
     if not args.json:
         con = _console(args)
-        display.show_run(con, run, payload)
-        display.print_cautions(con)
+        terminal.show_run(con, payload)
     for key in ("html", "md"):
         if key in report_paths:
             _note(f"report written: {report_paths[key]}")
@@ -282,7 +288,7 @@ def cmd_history(args):
     frame = store.history_frame(fund=config["portfolio"]["name"])
     flags = store.flag_changes(fund=config["portfolio"]["name"], threshold=config["store"]["change_threshold"])
     if not args.json:
-        display.show_history(_console(args), frame, flags)
+        terminal.show_history(_console(args), frame, flags)
     _write_tables(args, {"history": frame})
     runs = [{k: v for k, v in rec.to_dict().items() if k not in ("run", "config_text")}
             for rec in store.history(fund=config["portfolio"]["name"])]
@@ -297,7 +303,7 @@ def cmd_batch(args):
         raise InputError(f"--workers {args.workers} must be at least 1.", fix="pass a count of processes, e.g. 2.")
     paths = batch.expand_configs(args.configs)
     _note(f"batch: {len(paths)} configuration(s)")
-    with display.progress_bar("books") as tick:
+    with terminal.progress_bar("books") as tick:
         res = batch.run_batch(paths, workers=args.workers, scheduler=args.scheduler,
                               backtest=not args.no_backtest, closest=args.closest, store=not args.no_store,
                               note=lambda m: _note(f"... {m}"), tick=tick)
@@ -308,8 +314,8 @@ def cmd_batch(args):
             _note(f"book {o.name!r} failed (exit {o.exit_code}): {o.error}")
     if not args.json:
         con = _console(args)
-        display.show_batch(con, res.to_dict())
-        display.print_cautions(con)
+        terminal.show_batch(con, res.to_dict())
+        terminal.print_cautions(con)
     return res.to_dict(), res.exit_code
 
 
@@ -318,7 +324,7 @@ def cmd_validate(args):
     data = load_dataset(config)
     if not args.json:
         con = _console(args)
-        display.show_inputs(con, config, data)
+        terminal.show_inputs(con, config, data)
         con.print("All input files read and checked.")
     return {"config": str(args.config), "data": data.summary()}, 0
 

@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
-from .files import atomic_write_text
+from .present.publish import atomic_write_text
 
 SEED = 20261201
 START = "1985-12"          # first month of levels; returns start one month later

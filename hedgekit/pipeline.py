@@ -23,7 +23,7 @@ import pandas as pd
 from .config import Config
 from .errors import InputError
 from .inputs import Dataset, check_common_months, load_dataset
-from .record import RunResult
+from .record import RunResult, confidence_level
 
 Progress = Callable[[str], None] | None
 
@@ -129,7 +129,9 @@ def run_exposures(config: Config, data: Dataset, fs: FactorSet):
                              "its exposure is estimated on old data.")
     res = estimate_exposures(fs.factors, data.assets, instruments=data.instruments, holdings=holdings,
                              portfolio_returns=data.portfolio_returns, window=window,
-                             min_obs=ex["min_obs"], hac_lags=ex["hac_lags"])
+                             min_obs=ex["min_obs"], hac_lags=ex["hac_lags"],
+                             confidence=confidence_level(config), transform=fs.transform, sigma_u=fs.sigma_u,
+                             nav=config["portfolio"]["nav"])
     return replace(res, warnings=tuple(notes) + tuple(res.warnings)) if notes else res
 
 
@@ -167,13 +169,17 @@ def run_premia(config: Config, data: Dataset, fs: FactorSet, exposures):
     else:
         betas = exposures.assets.betas
     # GRS needs every factor to be a traded excess return: only the user can say so (factors file).
-    traded = list(pr["traded"]) or None
+    # The market factor, when it is the market excess return, is priced by its own mean.
+    traded = list(pr["traded"]) or ([fs.market] if fs.market in fs.factors.columns
+                                    and config["states"]["market_factor"] == "return" else None)
     unknown = [f for f in (traded or []) if f not in fs.factors.columns]
     if unknown:
         raise InputError(f"[premia] traded names {unknown[0]!r}, not a factor ({', '.join(fs.factors.columns)}).",
                          file=_cfg_file(config))
     return fama_macbeth(data.assets, betas, factors=fs.factors, intercept=pr["intercept"],
-                        nw_lags=pr["nw_lags"], traded=traded)
+                        nw_lags=pr["nw_lags"], traded=traded, book_betas=exposures.book,
+                        book_se=exposures.book_se, periods_per_year=data.periods_per_year,
+                        confidence=confidence_level(config))
 
 
 def premia_by_factor(premia, factors) -> pd.Series | None:
@@ -205,7 +211,7 @@ def hedge_spec(config: Config, data: Dataset):
                                 keep={k: tuple(v) for k, v in h["keep"].items()}, max_gross=h["max_gross"],
                                 exclude=h["exclude"], objective=h["objective"],
                                 premium_weight=h["premium_weight"], robust=h["robust"],
-                                confidence=h["confidence"])
+                                confidence=confidence_level(config))
 
 
 def _book_returns(data: Dataset, exposures) -> pd.Series:
@@ -238,7 +244,9 @@ def run_hedge(config: Config, data: Dataset, fs: FactorSet, exposures, premia, *
                           spec=spec, premia=premia_by_factor(premia, fs.factors.columns),
                           current=data.current_positions, book_se=exposures.book_se,
                           instrument_se=exposures.instruments.se_hac, closest=closest or h["closest"],
-                          periods_per_year=ppy, book_variance=book_variance, book_instrument_cov=book_cov)
+                          periods_per_year=ppy, book_variance=book_variance, book_instrument_cov=book_cov,
+                          premia_cov=None if premia is None else premia.cov_shanken,
+                          confidence=confidence_level(config))
 
 
 # --------------------------------------------------------------------------- stress
@@ -254,7 +262,7 @@ def run_stress_stage(config: Config, data: Dataset, fs: FactorSet, exposures, he
                       overlay_betas=overlay, scenarios=list(s["scenarios"]), book_se=exposures.book_se,
                       overlay_se=overlay_se, raw_innovations=fs.raw, factors=fs.factors,
                       book_returns=_book_returns(data, exposures), worst_k=s["worst_k"],
-                      recession_quantile=s["recession_quantile"])
+                      recession_quantile=s["recession_quantile"], confidence=confidence_level(config))
 
 
 # --------------------------------------------------------------------------- backtest
@@ -270,13 +278,13 @@ def run_backtest_stage(config: Config, data: Dataset, exposures, *, progress=Non
     window = None if b["window"] == "expanding" else int(b["window"])
     return walk_forward(data.states, _book_returns(data, exposures), data.instruments, data.sheet, spec=spec,
                         nav=config["portfolio"]["nav"], lags=st["lags"],
-                        min_window=b["min_months"], window=window, beta_min_obs=config["exposures"]["min_obs"],
+                        min_periods=b["min_periods"], window=window, beta_min_obs=config["exposures"]["min_obs"],
                         hac_lags=config["exposures"]["hac_lags"], asset_returns=data.assets,
                         nw_lags=config["premia"]["nw_lags"], premia_intercept=config["premia"]["intercept"],
                         beta_window=_window(config), rebalance=rebalance or b["rebalance"], start=b["start"],
                         periods_per_year=data.periods_per_year,
                         covariance_method=config["hedge"]["covariance"], progress=progress,
-                        market=market_name(config, data))
+                        market=market_name(config, data), confidence=confidence_level(config))
 
 
 # --------------------------------------------------------------------------- universe and book

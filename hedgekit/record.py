@@ -60,14 +60,8 @@ class RunResult:
                    run_meta(config, data, factor_set), tuple(dict.fromkeys(warnings)))
 
     def stage_dicts(self) -> dict[str, dict | None]:
-        from .pipeline import surprise_impacts
         st = self.factor_set.states
-        exposures = None
-        if self.exposures is not None:
-            exposures = self.exposures.to_dict()
-            if "per_surprise" not in exposures:
-                exposures["per_surprise"] = surprise_impacts(
-                    self.exposures, self.factor_set, self.meta.get("nav") or 1.0).to_dict(orient="index")
+        exposures = self.exposures.to_dict() if self.exposures is not None else None
         return {
             "states": st.to_dict() if st is not None else None,
             "exposures": exposures,

@@ -1,4 +1,4 @@
-"""Tests of the report: self-contained HTML, escaping, atomic writes, content from the run dict."""
+"""Tests of the report: self-contained HTML, escaping, all-or-none publishing, content from the run dict."""
 
 from __future__ import annotations
 
@@ -6,15 +6,19 @@ import base64
 import copy
 import functools
 import json
+import os
 import re
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 
-from hedgekit import plots, report
 from hedgekit.demo import simulate
 from hedgekit.errors import InputError
+from hedgekit.inference import interval_pairs, marks, p_value, t_stat
+from hedgekit.present import document, plots, publish, report
+from hedgekit.present.fmt import fmt, pct
 
 HOSTILE = "<script>alert(1)</script>"
 
@@ -130,6 +134,30 @@ def _demo_run_json() -> str:
         lam = run["premia"]["lambda"][f]
         run["premia"]["t_fm"][f] = lam / run["premia"]["se_fm"][f]
         run["premia"]["t_shanken"][f] = lam / run["premia"]["se_shanken"][f]
+    # What the stages write under the record contract (docs/interface.md), computed here with
+    # the shared helpers of hedgekit.inference, standing in for the stages.
+    ex = run["exposures"]
+    b, se = pd.Series(ex["portfolio"]), pd.Series(ex["portfolio_se"])
+    t = t_stat(b, se)
+    ex.update(confidence=0.95, portfolio_t=t.to_dict(), portfolio_p=p_value(t).to_dict(),
+              portfolio_marks=marks(p_value(t)).to_dict(), portfolio_interval=interval_pairs(b, se, 0.95))
+    rounded = pd.Series(after) + 0.001
+    run["hedge"].update(confidence=0.95, exposure_after_rounded=dict(zip(names, rounded.tolist(), strict=True)),
+                        exposure_after_rounded_interval=interval_pairs(
+                            pd.Series(rounded.to_numpy(), index=names), se, 0.95),
+                        ticket={c: {"weight": float(h[j]), "contracts": int(contracts[j]),
+                                    "weight_rounded": float(h[j]) + 0.0001,
+                                    "contract_value": float(sheet["price"].iloc[j] * sheet["multiplier"].iloc[j]),
+                                    "cost": 100.0} for j, c in enumerate(inst.columns)})
+    pr = run["premia"]
+    lam_a, se_a = pd.Series(pr["lambda"]) * 12, pd.Series(pr["se_shanken"]) * 12
+    t = t_stat(lam_a, se_a)
+    pr.update(confidence=0.95, headline_se="shanken", lambda_annual=lam_a.to_dict(),
+              lambda_annual_se=se_a.to_dict(), lambda_interval=interval_pairs(lam_a, se_a, 0.95),
+              p=p_value(t).to_dict(), marks=marks(p_value(t)).to_dict(),
+              lambda_route=dict.fromkeys(pr["factors"], "cross-section"))
+    run["meta"].update(confidence=0.95, level_label="95 %", period="month", period_plural="months",
+                       factors=names)
     return json.dumps(run)
 
 
@@ -152,7 +180,7 @@ def _hostile_run() -> dict:
 
 
 def test_html_is_self_contained(tmp_path: Path) -> None:
-    paths = report.write_report(demo_run(), tmp_path)
+    paths = report.publish_report(demo_run(), tmp_path)
     text = paths["html"].read_text(encoding="utf-8")
     assert "<script" not in text.lower()
     assert not re.search(r"""(?:src|href)\s*=\s*["']?\s*(?:https?:)?//""", text, re.I)
@@ -166,7 +194,7 @@ def test_html_is_self_contained(tmp_path: Path) -> None:
 
 
 def test_hostile_names_are_escaped(tmp_path: Path) -> None:
-    paths = report.write_report(_hostile_run(), tmp_path)
+    paths = report.publish_report(_hostile_run(), tmp_path)
     html_text = paths["html"].read_text(encoding="utf-8")
     assert HOSTILE not in html_text
     assert "<script" not in html_text.lower()
@@ -179,55 +207,59 @@ def test_hostile_names_are_escaped(tmp_path: Path) -> None:
 
 
 def test_sections_follow_the_data(tmp_path: Path) -> None:
-    doc = report.build_document(demo_run())
+    doc = document.build_document(demo_run())
     keys = [s.key for s in doc.sections]
     assert keys == ["summary", "exposures", "rolling", "premia", "hedge", "stress",
                     "diagnostics", "methods", "cautions"]
     bare = {"meta": demo_run()["meta"], "exposures": None, "premia": None, "hedge": None,
             "stress": None, "backtest": None, "states": None, "warnings": [], "cautions": []}
-    keys = [s.key for s in report.build_document(bare).sections]
+    keys = [s.key for s in document.build_document(bare).sections]
     assert keys == ["summary", "diagnostics", "methods", "cautions"]
-    paths = report.write_report(bare, tmp_path)
+    paths = report.publish_report(bare, tmp_path)
     assert "Decision support, not investment advice" in paths["html"].read_text(encoding="utf-8")
 
 
 def test_summary_numbers_come_from_the_run() -> None:
     run = demo_run()
-    doc = report.build_document(run)
+    doc = document.build_document(run)
     summary = doc.sections[0]
-    table = next(b for b in summary.blocks if isinstance(b, report.Table))
+    table = next(b for b in summary.blocks if isinstance(b, document.Table))
     row = {r[0]: r for r in table.rows}
-    b, se = run["exposures"]["portfolio"]["term"], run["exposures"]["portfolio_se"]["term"]
-    assert row["term"][1] == report.fmt(b)
-    assert row["term"][2] == report.fmt(b / se, 2)
-    # the overlay neutralises term and def: the after column reads zero to three decimals
-    assert row["term"][4] in ("0.000", "\u22120.000")
-    assert row["def"][4] in ("0.000", "\u22120.000")
-    text = json.dumps([b.items if isinstance(b, report.Bullets) else getattr(b, "text", "")
-                       for b in summary.blocks])
+    ex, hedge = run["exposures"], run["hedge"]
+    assert row["term"][1] == fmt(ex["portfolio"]["term"]) + ex["portfolio_marks"]["term"]
+    assert row["term"][2] == fmt(ex["portfolio_t"]["term"], 2)
+    lo, hi = ex["portfolio_interval"]["term"]
+    assert row["term"][3] == f"[{fmt(lo)}, {fmt(hi)}]"
+    # the headline shows what the whole contracts leave, not the continuous solution
+    assert row["def"][5] == fmt(hedge["exposure_after_rounded"]["def"])
+    assert table.columns[3] == table.columns[6] == "95 % interval"
+    text = json.dumps([b.items if isinstance(b, document.Bullets) else getattr(b, "text", "")
+                       for b in summary.blocks], ensure_ascii=False)
     worst = min(run["stress"]["scenarios"], key=lambda r: r["pnl"]["unhedged"]["return"])
-    assert worst["name"] in text
-    assert "Worst scenario" in text
+    assert document.scenario_label(worst) in text and "Worst scenario" in text
+    # one rounding convention on the legs line: contracts with the weight they give
+    leg = next(iter(hedge["ticket"]))
+    assert pct(hedge["ticket"][leg]["weight_rounded"], 1, plus=True) in text
 
 
 def test_markdown_carries_the_same_tables(tmp_path: Path) -> None:
     run = demo_run()
-    paths = report.write_report(run, tmp_path)
+    paths = report.publish_report(run, tmp_path)
     md = paths["md"].read_text(encoding="utf-8")
-    doc = report.build_document(run)
+    doc = document.build_document(run)
     for sec in doc.sections:
         assert sec.title in md
     for key in ("exposures", "rolling", "premia", "stress"):
         png = paths[f"figure_{key}"]
         assert png.read_bytes()[:4] == b"\x89PNG"
         assert f"]({png.name})" in md
-    md_only = report.write_report(run, tmp_path / "plain", formats=("md",), markdown_figures=False)
+    md_only = report.publish_report(run, tmp_path / "plain", formats=("md",), markdown_figures=False)
     text = md_only["md"].read_text(encoding="utf-8")
     assert "Figure omitted" in text and set(md_only) == {"md"}
 
 
 def test_failed_render_leaves_the_earlier_report(tmp_path: Path, monkeypatch) -> None:
-    first = report.write_report(demo_run(), tmp_path)
+    first = report.publish_report(demo_run(), tmp_path)
     before = {k: p.read_bytes() for k, p in first.items()}
 
     def broken(*args, **kwargs):
@@ -237,48 +269,50 @@ def test_failed_render_leaves_the_earlier_report(tmp_path: Path, monkeypatch) ->
     changed = demo_run()
     changed["meta"]["fund"] = "Another book"
     with pytest.raises(RuntimeError, match="plot failed"):
-        report.write_report(changed, tmp_path)
+        report.publish_report(changed, tmp_path)
     assert {k: p.read_bytes() for k, p in first.items()} == before
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(p.name for p in first.values())
 
 
 def test_failed_write_leaves_no_half_file(tmp_path: Path, monkeypatch) -> None:
-    first = report.write_report(demo_run(), tmp_path)
+    out = tmp_path / "out"
+    first = report.publish_report(demo_run(), out)
     before = {k: p.read_bytes() for k, p in first.items()}
     calls = []
+    real = publish._write_bytes
 
-    def fail_on_write(fd, mode="r", *args, **kwargs):
-        calls.append(fd)
-        if len(calls) == 3:  # the third temporary file: figures and text partly staged
-            raise OSError("disk full")
-        return real_fdopen(fd, mode, *args, **kwargs)
+    def fail_on_write(path, data):
+        calls.append(path)
+        if len(calls) == 3:  # the third file: figures and text partly staged
+            raise OSError(28, "No space left on device")
+        return real(path, data)
 
-    real_fdopen = report.os.fdopen
-    monkeypatch.setattr(report.os, "fdopen", fail_on_write)
-    with pytest.raises(InputError, match="disk full"):  # exit 2 at the command line, no traceback
-        report.write_report(demo_run(), tmp_path)
+    monkeypatch.setattr(publish, "_write_bytes", fail_on_write)
+    with pytest.raises(InputError, match="No space left"):  # exit 2 at the command line, no traceback
+        report.publish_report(demo_run(), out)
     assert len(calls) == 3
     assert {k: p.read_bytes() for k, p in first.items()} == before
-    assert not [p for p in tmp_path.iterdir() if p.name.endswith(".tmp")]
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted([out.name, os.readlink(out)])
 
 
 def test_unreachable_hedge_is_flagged() -> None:
     run = demo_run()
     run["hedge"]["status"] = "unreachable"
     run["hedge"]["unreachable"] = ["def"]
-    doc = report.build_document(run)
+    doc = document.build_document(run)
     hedge = next(s for s in doc.sections if s.key == "hedge")
     alert = hedge.blocks[0]
-    assert isinstance(alert, report.Para) and alert.kind == "alert" and "def" in alert.text
-    summary_alerts = [b for b in doc.sections[0].blocks if isinstance(b, report.Para) and b.kind == "alert"]
+    assert isinstance(alert, document.Para) and alert.kind == "alert" and "def" in alert.text
+    summary_alerts = [b for b in doc.sections[0].blocks if isinstance(b, document.Para) and b.kind == "alert"]
     assert len(summary_alerts) == 1 and "def" in summary_alerts[0].text
 
 
 def test_non_stationary_var_is_loud() -> None:
     run = demo_run()
     run["states"]["max_eigen_modulus"] = 1.002
-    diag = next(s for s in report.build_document(run).sections if s.key == "diagnostics")
-    assert any(isinstance(b, report.Para) and b.kind == "alert" and "not stationary" in b.text
+    run["states"]["stable"] = False  # the states stage's verdict: presentation only reports it
+    diag = next(s for s in document.build_document(run).sections if s.key == "diagnostics")
+    assert any(isinstance(b, document.Para) and b.kind == "alert" and "not stationary" in b.text
                for b in diag.blocks)
 
 
@@ -288,18 +322,17 @@ def test_missing_values_and_extras_do_not_break(tmp_path: Path) -> None:
     run["exposures"]["portfolio_direct"] = {k: v + 0.01 for k, v in run["exposures"]["portfolio"].items()}
     run["premia"]["t_nw"] = {k: 1.5 for k in run["premia"]["factors"]}
     run["premia"]["grs"] = {"stat": 1.1, "pvalue": 0.35}
-    run["hedge"]["ticket"] = [{"instrument": k, "side": "buy" if v > 0 else "sell", "weight": v,
-                               "contracts": 3} for k, v in run["hedge"]["positions"].items()]
+    run["hedge"]["ticket"] = ["a shape no stage writes"]
     run["backtest"] = {"rebalance_dates": ["2020-03", "2020-06"],
                        "decisions": {"2020-03": {"rate_future_2y": 0.1}, "2020-06": {"rate_future_2y": 0.2}},
                        "effectiveness": 0.71, "realised_tracking_error": 0.02,
                        "predicted_tracking_error": 0.018,
                        "series": {"dates": ["2020-04", "2020-05", "2020-06"],
-                                  "hedged": [0.01, None, -0.01], "unhedged": [0.02, -0.03, 0.0]}}
-    paths = report.write_report(run, tmp_path)
+                                  "hedged_net": [0.01, None, -0.01], "book": [0.02, -0.03, 0.0]}}
+    paths = report.publish_report(run, tmp_path)
     text = paths["html"].read_text(encoding="utf-8")
     assert "Walk-forward check" in text and "71.0 %" in text
-    assert "From the book&#x27;s returns" in text
+    assert "From the book&#39;s returns" in text
     assert "figure_backtest" in paths
     assert "GRS test" in text
 
@@ -307,21 +340,19 @@ def test_missing_values_and_extras_do_not_break(tmp_path: Path) -> None:
 def test_plots_are_deterministic_png() -> None:
     run = demo_run()
     a = plots.exposure_chart(run["exposures"], run["hedge"])
-    b = plots.exposure_chart(copy.deepcopy(run["exposures"]), run["hedge"])
+    b = plots.exposure_chart(copy.deepcopy(run["exposures"]), copy.deepcopy(run["hedge"]))
     assert a == b and a[:4] == b"\x89PNG"
-    se, how = plots.exposure_se_after(run["exposures"], run["hedge"])
-    assert "independent" in how
-    # the hedged book's standard error is at least the book's own (variances add)
-    for f, s in se.items():
-        assert s >= run["exposures"]["portfolio_se"][f] - 1e-15
+    # bars without recorded intervals draw no error bars rather than inventing them
+    bare = {k: v for k, v in run["exposures"].items() if k != "portfolio_interval"}
+    assert plots.exposure_chart(bare, None)[:4] == b"\x89PNG"
 
 
 def test_bad_format_is_an_input_error(tmp_path: Path) -> None:
     from hedgekit.errors import InputError
     with pytest.raises(InputError, match="format"):
-        report.write_report(demo_run(), tmp_path, formats=("pdf",))
+        report.publish_report(demo_run(), tmp_path, formats=("pdf",))
     with pytest.raises(InputError, match="file name"):
-        report.write_report(demo_run(), tmp_path, name="../x")
+        report.publish_report(demo_run(), tmp_path, name="../x")
 
 
 DEMO_CONFIG = Path(__file__).resolve().parents[1] / "demo_portfolios" / "larkspur.toml"
@@ -334,24 +365,29 @@ def test_real_demo_run_report_and_store(tmp_path: Path) -> None:
     from hedgekit.store import RunStore
 
     config = load_config(DEMO_CONFIG)
-    run = json.loads(json.dumps(run_all(config).to_dict(), allow_nan=False))
-    paths = report.write_report(run, tmp_path / "out")
+    run = json.loads(json.dumps(run_all(config, backtest=True).to_dict(), allow_nan=False))
+    paths = report.publish_report(run, tmp_path / "out")
     text = paths["html"].read_text(encoding="utf-8")
-    doc = report.build_document(run)
+    doc = document.build_document(run)
     assert [s.key for s in doc.sections] == ["summary", "exposures", "rolling", "premia", "hedge",
                                              "stress", "backtest", "diagnostics", "methods", "cautions"]
     assert "<script" not in text.lower() and not re.search(r"(?:src|href)\s*=\s*\"?https?:", text)
-    assert len(re.findall(r'<img src="data:image/png;base64,', text)) == 5
+    figures = len(re.findall(r'<img src="data:image/png;base64,', text))
+    assert figures == len(doc.plots()) >= 4
     # the summary's exposures are the exposure stage's numbers, the after column the hedge's
-    table = next(b for b in doc.sections[0].blocks if isinstance(b, report.Table))
+    # whole-contract figures (marks only where the record gives them)
+    table = next(b for b in doc.sections[0].blocks if isinstance(b, document.Table))
+    ex, hedge = run["exposures"], run["hedge"]
     for row in table.rows:
-        assert row[1] == report.fmt(run["exposures"]["portfolio"][row[0]])
-        assert row[4] == report.fmt(run["hedge"]["exposure_after"][row[0]])
-    for name, leg in run["hedge"]["ticket"].items():
+        f = row[0]
+        assert row[1] == fmt(ex["portfolio"][f]) + (ex.get("portfolio_marks") or {}).get(f, "")
+        assert row[5] == fmt(hedge["exposure_after_rounded"][f]) + (
+            hedge.get("exposure_after_rounded_marks") or {}).get(f, "")
+    for name, leg in hedge["ticket"].items():
         assert f"{abs(leg['contracts']):,}" in text and name.replace("_", "_<wbr>") in text
-    # every standing caution once, and the stages' duplicates of them folded in
+    # the cautions are the run's, as given
     cautions = next(s for s in doc.sections if s.key == "cautions").blocks[0].items
-    assert sum("investment advice" in c for c in cautions) == 1
+    assert list(cautions) == run["cautions"]
     store = RunStore(tmp_path / "runs.sqlite")
     first = store.record(run, config.text, paths["html"])
     rerun = copy.deepcopy(run)
@@ -365,48 +401,43 @@ def test_real_demo_run_report_and_store(tmp_path: Path) -> None:
 
 def test_quarterly_run_reads_in_quarters(tmp_path: Path) -> None:
     run = demo_run()
-    run["meta"]["frequency"] = "quarterly"
+    run["meta"].update(frequency="quarterly", period="quarter", period_plural="quarters")
+    run["warnings"] = []  # the record's own words; the check is on the report's
     n = len(run["exposures"]["rolling"]["dates"])
     quarters = [f"{1986 + i // 4}Q{i % 4 + 1}" for i in range(n)]
     run["exposures"]["rolling"]["dates"] = quarters
-    doc = report.build_document(run)
+    doc = document.build_document(run)
     premia = next(s for s in doc.sections if s.key == "premia")
-    table = next(b for b in premia.blocks if isinstance(b, report.Table))
+    table = next(b for b in premia.blocks if isinstance(b, document.Table))
+    assert "Premium a quarter" in table.columns
     mkt = next(r for r in table.rows if r[0] == "mkt")
-    # a year is four quarters: the annual premium is four times the per-period one
-    assert mkt[2] == report.pct(run["premia"]["lambda"]["mkt"] * 4)
-    facts = next(b for b in premia.blocks if isinstance(b, report.Bullets)).items
+    # the annual premium is the premia stage's own figure, not a multiple computed here
+    assert mkt[3].startswith(pct(run["premia"]["lambda_annual"]["mkt"]))
+    facts = next(b for b in premia.blocks if isinstance(b, document.Bullets)).items
     assert any(f.startswith("Quarters used") for f in facts)
     assert np.allclose(plots._month_axis(quarters[:3]), [1986.0, 1986.25, 1986.5])
-    assert report.write_report(run, tmp_path)["figure_rolling"].exists()
+    paths = report.publish_report(run, tmp_path)
+    assert paths["figure_rolling"].exists()
+    assert "month" not in paths["html"].read_text(encoding="utf-8").lower()
 
 
-def test_a_failed_rename_puts_every_earlier_file_back(tmp_path, monkeypatch):
-    """All report files change or none: a rename failing half-way restores the ones already moved."""
-    import os as _os
-
-    from hedgekit import report as rep
+def test_a_failed_switch_leaves_every_earlier_file(tmp_path, monkeypatch):
+    """All report files change or none: the switch to the new folder failing leaves the old one."""
     run = demo_run()
-    first = rep.write_report(run, tmp_path)
-    before = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    out = tmp_path / "out"
+    first = report.publish_report(run, out)
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
     run2 = dict(run, meta=dict(run["meta"], sample_end="2099-12"))
-    real = _os.replace
-    calls = {"n": 0}
+    real = os.replace
 
     def flaky(src, dst):
-        if str(dst).endswith(".html") and not str(src).endswith(".bak"):
+        if Path(dst) == out:
             raise PermissionError(13, "Permission denied")
-        calls["n"] += 1
         return real(src, dst)
-    monkeypatch.setattr(rep.os, "replace", flaky)
-    from hedgekit.errors import InputError
-    try:
-        rep.write_report(run2, tmp_path)
-    except InputError as exc:
-        assert "earlier report" in str(exc)
-    else:
-        raise AssertionError("expected an InputError")
-    monkeypatch.setattr(rep.os, "replace", real)
-    after = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
-    assert after == before, "every file is back as it was, and no temporary or backup file is left"
+    monkeypatch.setattr(publish.os, "replace", flaky)
+    with pytest.raises(InputError, match="earlier report"):
+        report.publish_report(run2, out)
+    monkeypatch.setattr(publish.os, "replace", real)
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted([out.name, os.readlink(out)])
     assert first["html"].exists()

@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from hedgekit import plots, report
+from hedgekit.present import plots, report
 from hedgekit.errors import InputError
 from hedgekit.store import RunStore, fingerprint
 
@@ -150,7 +150,7 @@ def test_interrupted_report_leaves_report_and_store(tmp_path: Path, monkeypatch)
     out = tmp_path / "out"
 
     def publish(run: dict) -> int:
-        paths = report.write_report(run, out)
+        paths = report.publish_report(run, out)
         return store.record(run, CONFIG, paths["html"])
 
     publish(quarter_run("2025-03"))
@@ -160,7 +160,7 @@ def test_interrupted_report_leaves_report_and_store(tmp_path: Path, monkeypatch)
     def broken(*args, **kwargs):
         raise RuntimeError("figure failed")
 
-    monkeypatch.setattr(plots, "premia_chart", broken)
+    monkeypatch.setattr(plots, "exposure_chart", broken)
     with pytest.raises(RuntimeError, match="figure failed"):
         publish(quarter_run("2025-06", shift=0.3))
     assert {p.name: p.read_bytes() for p in out.iterdir()} == files

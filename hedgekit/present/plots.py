@@ -1,26 +1,26 @@
-"""Figures for the report: pure builders, a stage's JSON dict in, PNG bytes out.
+"""Figures for the report: pure builders, the run record's dicts in, PNG bytes out.
 
 Every builder draws on its own ``matplotlib.figure.Figure`` with the Agg canvas (no
 pyplot state, no display, nothing written to disk) and returns the PNG as bytes, so
 the report can embed it as a data URI or write it next to the Markdown file.
 PNG metadata carry no software stamp or time, so equal input gives equal bytes.
 
-Intervals are estimate ± 1.96 standard errors (two-sided 95 % under the normal
-approximation to the t-statistic, common practice).
+Error bars are the intervals the stages recorded (at the configured level); a figure
+never computes a standard error or a critical value, and draws no bar where the record
+gives no interval.
 """
 
 from __future__ import annotations
 
 import io
 import math
+import textwrap
 from collections.abc import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
-
-Z95 = 1.959963984540054  # two-sided 95 % normal quantile
 
 # Our own palette: slate ink, deep teal for the book as held, ochre for the hedged
 # book, muted plum and sage for extra series.
@@ -56,9 +56,13 @@ def _png(fig: Figure) -> bytes:
     return buf.getvalue()
 
 
-def _label(text) -> str:
-    """A user-supplied name as literal text (a "$" would otherwise start matplotlib mathtext)."""
-    return str(text).replace("$", r"\$")
+def _label(text, width: int = 0) -> str:
+    """A record string as literal text (a "$" would otherwise start matplotlib mathtext),
+    wrapped at ``width`` characters when given."""
+    text = str(text)
+    if width and len(text) > width:
+        text = "\n".join(textwrap.wrap(text, width))
+    return text.replace("$", r"\$")
 
 
 def _num(x) -> float:
@@ -76,56 +80,49 @@ def _values(mapping: Mapping | None, names: Sequence[str]) -> np.ndarray:
     return np.array([_num(mapping.get(n)) for n in names], dtype=float)
 
 
-def exposure_se_after(exposures: Mapping, hedge: Mapping) -> tuple[dict[str, float], str]:
-    """Standard errors of the hedged book's exposures and how they were obtained.
-
-    b_after = b_p + B_H h, so with independent estimation errors of the book's and the
-    instruments' betas, se_after,f² = se_p,f² + Σ_j h_j² se_j,f² (variance of a sum of
-    independent estimates; the independence is an approximation, common practice).
-    The hedge stage's own ``exposure_after_se`` is used when it reports one.
-    """
-    factors = list(exposures.get("factors") or (hedge.get("exposure_after") or {}))
-    own = hedge.get("exposure_after_se")
-    if own:
-        return {f: _num(own.get(f)) for f in factors}, "as reported by the hedge stage"
-    book_se = _values(exposures.get("portfolio_se"), factors)
-    inst_se = (exposures.get("instruments_se_hac") or exposures.get("instruments_se")
-               or exposures.get("instrument_se"))
-    positions = hedge.get("positions") or {}
-    if inst_se and positions:
-        var = book_se ** 2
-        for name, weight in positions.items():
-            se = _values(inst_se.get(name), factors)
-            var = var + (_num(weight) ** 2) * np.nan_to_num(se) ** 2
-        return dict(zip(factors, np.sqrt(var).tolist(), strict=True)), (
-            "book and instrument estimation errors, taken as independent")
-    return dict(zip(factors, book_se.tolist(), strict=True)), "book estimation error only"
+def _pairs(mapping: Mapping | None, names: Sequence[str]) -> tuple[np.ndarray, np.ndarray]:
+    """Low and high ends of recorded intervals ``{name: [lo, hi]}`` (NaN where missing)."""
+    lo, hi = [], []
+    for n in names:
+        p = (mapping or {}).get(n)
+        ok = isinstance(p, Sequence) and not isinstance(p, str) and len(p) == 2
+        lo.append(_num(p[0]) if ok else math.nan)
+        hi.append(_num(p[1]) if ok else math.nan)
+    return np.array(lo, dtype=float), np.array(hi, dtype=float)
 
 
-def exposure_chart(exposures: Mapping, hedge: Mapping | None = None) -> bytes:
-    """Bars of the book's exposure to each factor with 95 % intervals, before and after the hedge."""
-    factors = list(exposures.get("factors") or exposures.get("portfolio") or [])
+def _bars(ax, x, values, lo, hi, **kw) -> None:
+    """Bars with error bars spanning the recorded interval (none where it is missing)."""
+    ax.bar(x, values, **kw)
+    ok = np.isfinite(lo) & np.isfinite(hi) & np.isfinite(values)
+    if ok.any():
+        err = np.vstack([values[ok] - lo[ok], hi[ok] - values[ok]])
+        ax.errorbar(x[ok], values[ok], yerr=err, fmt="none", ecolor=INK, elinewidth=1.0, capsize=3)
+
+
+def exposure_chart(exposures: Mapping, hedge: Mapping | None = None, *,
+                   factors: Sequence[str] | None = None) -> bytes:
+    """Bars of the book's exposure to each factor with the recorded intervals, as held and
+    (when a hedge is given) with the whole-contract overlay."""
+    factors = list(factors or exposures.get("factors") or exposures.get("portfolio") or [])
     if not factors:
         raise ValueError("exposures carry no factors to draw")
     before = _values(exposures.get("portfolio"), factors)
-    se_before = _values(exposures.get("portfolio_se"), factors)
+    lo_b, hi_b = _pairs(exposures.get("portfolio_interval") or (hedge or {}).get("exposure_before_interval"),
+                        factors)
     after = None
-    if hedge and hedge.get("exposure_after"):
-        after = _values(hedge.get("exposure_after"), factors)
-        se_after_map, _ = exposure_se_after(exposures, hedge)
-        se_after = _values(se_after_map, factors)
+    if hedge and hedge.get("exposure_after_rounded"):
+        after = _values(hedge.get("exposure_after_rounded"), factors)
+        lo_a, hi_a = _pairs(hedge.get("exposure_after_rounded_interval"), factors)
     fig = _figure(7.2, 3.2)
     ax = fig.add_subplot(1, 1, 1)
-    x = np.arange(len(factors))
+    x = np.arange(len(factors), dtype=float)
     width = 0.38 if after is not None else 0.6
     shift = width / 2 if after is not None else 0.0
-    ax.bar(x - shift, before, width, color=BEFORE, label="book as held")
-    ax.errorbar(x - shift, before, yerr=Z95 * np.nan_to_num(se_before), fmt="none",
-                ecolor=INK, elinewidth=1.0, capsize=3)
+    _bars(ax, x - shift, before, lo_b, hi_b, width=width, color=BEFORE, label="book as held")
     if after is not None:
-        ax.bar(x + shift, after, width, color=AFTER, label="with the overlay")
-        ax.errorbar(x + shift, after, yerr=Z95 * np.nan_to_num(se_after), fmt="none",
-                    ecolor=INK, elinewidth=1.0, capsize=3)
+        _bars(ax, x + shift, after, lo_a, hi_a, width=width, color=AFTER,
+              label="with the overlay, whole contracts")
     ax.set_xticks(x, [_label(f) for f in factors])
     _style(ax, ylabel="beta (return per unit factor)")
     ax.legend(frameon=False, fontsize=8, loc="best")
@@ -161,36 +158,38 @@ def rolling_chart(exposures: Mapping) -> bytes:
     return _line_chart(dates, series, ylabel="beta, trailing window")
 
 
-def premia_chart(premia: Mapping, *, periods_per_year: int = 12) -> bytes:
-    """Annualised prices of risk with 95 % intervals from plain and Shanken-corrected errors."""
+def premia_chart(premia: Mapping) -> bytes:
+    """Prices of risk a year (``lambda_annual``) with their recorded intervals (``lambda_interval``)."""
     names = [f for f in (premia.get("factors") or []) if f != "const"]
     if not names:
         raise ValueError("premia carry no factors to draw")
-    lam = _values(premia.get("lambda"), names) * periods_per_year
-    se_fm = _values(premia.get("se_fm"), names) * periods_per_year
-    se_sh = _values(premia.get("se_shanken"), names) * periods_per_year
+    lam = _values(premia.get("lambda_annual"), names) * 100.0
+    lo, hi = _pairs(premia.get("lambda_interval"), names)
+    lo, hi = lo * 100.0, hi * 100.0
     fig = _figure(7.2, 2.9)
     ax = fig.add_subplot(1, 1, 1)
-    x = np.arange(len(names))
-    ax.errorbar(x - 0.08, lam, yerr=Z95 * np.nan_to_num(se_fm), fmt="o", color=BEFORE,
-                capsize=3, label="Fama-MacBeth interval")
-    ax.errorbar(x + 0.08, lam, yerr=Z95 * np.nan_to_num(se_sh), fmt="o", color=AFTER,
-                capsize=3, label="Shanken-corrected interval")
+    x = np.arange(len(names), dtype=float)
+    ok = np.isfinite(lo) & np.isfinite(hi) & np.isfinite(lam)
+    ax.plot(x, lam, "o", color=BEFORE, label="estimate")
+    if ok.any():
+        ax.errorbar(x[ok], lam[ok], yerr=np.vstack([lam[ok] - lo[ok], hi[ok] - lam[ok]]), fmt="none",
+                    ecolor=BEFORE, capsize=3, label="interval")
     ax.set_xticks(x, [_label(f) for f in names])
-    _style(ax, ylabel="premium per unit beta, a year")
+    _style(ax, ylabel="premium per unit beta, % a year")
     ax.legend(frameon=False, fontsize=8, loc="best")
     return _png(fig)
 
 
-def stress_chart(rows: Sequence[Mapping], *, before_key: str, after_key: str,
-                 label_key: str = "name", scale: float = 1.0, unit: str = "") -> bytes:
-    """Horizontal bars of scenario P&L before and after the hedge."""
+def stress_chart(rows: Sequence[Mapping], *, unit: str = "% of NAV") -> bytes:
+    """Horizontal bars of scenario P&L (fractions of NAV, drawn in %) before and after the hedge;
+    each row gives ``label``, ``before`` and ``after``."""
     if not rows:
         raise ValueError("no stress scenarios to draw")
-    labels = [_label(r.get(label_key, i)) for i, r in enumerate(rows)]
-    before = np.array([_num(r.get(before_key)) for r in rows]) * scale
-    after = np.array([_num(r.get(after_key)) for r in rows]) * scale
-    fig = _figure(7.2, max(2.2, 0.42 * len(rows) + 0.9))
+    labels = [_label(r.get("label", i), 38) for i, r in enumerate(rows)]
+    before = np.array([_num(r.get("before")) for r in rows]) * 100.0
+    after = np.array([_num(r.get("after")) for r in rows]) * 100.0
+    lines = sum(label.count("\n") + 1 for label in labels)
+    fig = _figure(7.2, max(2.2, 0.3 * lines + 0.14 * len(rows) + 0.9))
     ax = fig.add_subplot(1, 1, 1)
     y = np.arange(len(rows))
     ax.barh(y - 0.19, before, 0.38, color=BEFORE, label="book as held")
@@ -202,7 +201,7 @@ def stress_chart(rows: Sequence[Mapping], *, before_key: str, after_key: str,
     ax.grid(axis="x", color=GRID, linewidth=0.7)
     ax.set_axisbelow(True)
     ax.axvline(0.0, color=INK, linewidth=0.8)
-    ax.set_xlabel(f"scenario P&L{(' (' + unit + ')') if unit else ''}", color=INK, fontsize=8.5)
+    ax.set_xlabel(f"scenario P&L ({unit})", color=INK, fontsize=8.5)
     ax.legend(frameon=False, fontsize=8, ncol=2, loc="lower center", bbox_to_anchor=(0.5, 1.0))
     return _png(fig)
 
