@@ -105,9 +105,14 @@ def cmd_exposures(args):
 
 def cmd_premia(args):
     config, data = _load(args, "premia")
-    st = pipeline.run_stages(config, data, "premia")
+    if data.holdings is None and data.portfolio_returns is None:  # no book: the test assets are enough
+        fs = pipeline.prepare_universe(config, data).factor_set
+        st = pipeline.Stages(fs, pipeline.asset_betas_only(config, data, fs))
+        st = pipeline.Stages(fs, st.exposures, pipeline.run_premia(config, data, fs, st.exposures))
+    else:
+        st = pipeline.run_stages(config, data, "premia")
     res = st.premia
-    _print_notes(st.factor_set.states, st.exposures, res)
+    _print_notes(st.factor_set.states, res)
     if not args.json:
         terminal.show_premia(_console(args), res.to_dict(), meta_of(config, data, st.factor_set))
     _write_tables(args, {"premia": res.to_frame(), "pricing_errors": res.pricing_errors.to_frame("pricing_error"),

@@ -401,10 +401,6 @@ def parse_config(text: str, *, path: Path | None = None, base: Path | None = Non
     if isinstance(ex["window"], int) and ex["window"] < ex["min_obs"]:
         raise InputError(f"[exposures] window = {ex['window']} is shorter than min_obs = {ex['min_obs']}.",
                          file=where, fix="raise window or lower min_obs.")
-    if nav is None:
-        raise InputError("[portfolio] nav is required: P&L, notionals and contracts are sized from it.",
-                         file=where, fix="add nav = 250_000_000 (the net asset value in currency units) "
-                                         "under [portfolio].")
     return Config(path=path, base=base, text=text,
                   sections=MappingProxyType({s: _freeze(v) for s, v in sections.items()}))
 

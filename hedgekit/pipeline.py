@@ -131,7 +131,7 @@ def run_exposures(config: Config, data: Dataset, fs: FactorSet):
                              portfolio_returns=data.portfolio_returns, window=window,
                              min_obs=ex["min_obs"], hac_lags=ex["hac_lags"],
                              confidence=confidence_level(config), transform=fs.transform, sigma_u=fs.sigma_u,
-                             nav=config["portfolio"]["nav"])
+                             nav=config["portfolio"]["nav"])  # per-surprise P&L only when NAV is set
     return replace(res, warnings=tuple(notes) + tuple(res.warnings)) if notes else res
 
 
@@ -157,6 +157,36 @@ def surprise_impacts(exposures, fs: FactorSet, nav: float, *, size: float = 0.01
 
 
 # --------------------------------------------------------------------------- premia
+
+def require_nav(config: Config, what: str) -> float:
+    """The NAV, for the stages that size P&L, notionals and contracts from it (the others need none)."""
+    nav = config["portfolio"]["nav"]
+    if nav is None:
+        raise InputError(f"[portfolio] nav is required for {what}: P&L, notionals and contracts are sized from it.",
+                         file=_cfg_file(config), fix="add nav = 250_000_000 (the net asset value in currency units) "
+                                                     "under [portfolio].")
+    return nav
+
+
+@dataclass(frozen=True)
+class AssetBetas:
+    """The test assets' betas when no book is configured (the premia command needs no book)."""
+
+    assets: Any
+    rolling_assets: Any = None
+    book: Any = None
+    book_se: Any = None
+
+
+def asset_betas_only(config: Config, data: Dataset, fs: FactorSet) -> AssetBetas:
+    from .exposures import rolling_betas, time_series_betas
+    ex = config["exposures"]
+    check_common_months(data.assets, fs.factors, ex["min_obs"], "the exposures")
+    window = _window(config)
+    rolling = (rolling_betas(data.assets, fs.factors, window=window, min_obs=ex["min_obs"])
+               if window is not None and config["premia"]["betas"] == "rolling" else None)
+    return AssetBetas(time_series_betas(data.assets, fs.factors, hac_lags=ex["hac_lags"]), rolling)
+
 
 def run_premia(config: Config, data: Dataset, fs: FactorSet, exposures):
     from .premia import fama_macbeth
@@ -225,6 +255,7 @@ def _book_returns(data: Dataset, exposures) -> pd.Series:
 
 def run_hedge(config: Config, data: Dataset, fs: FactorSet, exposures, premia, *, closest: bool = False):
     from .hedge import design_overlay, instrument_covariance
+    require_nav(config, "the hedge")
     if data.instruments is None or data.sheet is None or exposures.instruments is None:
         raise InputError("the hedge needs [data] instruments and [data] instrument_sheet.", file=_cfg_file(config))
     h = config["hedge"]
@@ -253,6 +284,7 @@ def run_hedge(config: Config, data: Dataset, fs: FactorSet, exposures, premia, *
 
 def run_stress_stage(config: Config, data: Dataset, fs: FactorSet, exposures, hedge):
     from .stress import overlay_exposure, run_stress
+    require_nav(config, "the stress scenarios")
     s = config["stress"]
     overlay = overlay_se = None
     if hedge is not None and exposures.instruments is not None:
@@ -269,6 +301,7 @@ def run_stress_stage(config: Config, data: Dataset, fs: FactorSet, exposures, he
 
 def run_backtest_stage(config: Config, data: Dataset, exposures, *, progress=None, rebalance: str | None = None):
     from .backtest import walk_forward
+    require_nav(config, "the walk-forward check")
     if data.states is None:
         raise InputError("the walk-forward check re-estimates the VAR and needs [data] states.",
                          file=_cfg_file(config))

@@ -12,7 +12,7 @@ import pytest
 
 from hedgekit.cli import main
 
-from .helpers import demo_copy
+from .helpers import DEMO, demo_copy
 
 CONTRACT = {
     "states": ["variables", "intercept", "coef", "max_eigen_modulus", "innovations", "transform"],
@@ -196,3 +196,25 @@ def test_out_that_is_a_file_fails_before_any_work(tmp_path, capsys):
     target.write_text("x")
     assert main(["hedge", str(cfg), "--out", str(target)]) == 2
     assert "--out must name a folder" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("command,files", [
+    ("states", ("states",)), ("premia", ("states", "assets")), ("premia", ("factors", "assets")),
+])
+def test_stage_commands_on_minimal_configs(tmp_path, capsys, command, files):
+    """A stage command needs only its own inputs: no NAV, no book, no instruments (issue 10 item 3)."""
+    import shutil
+
+    from hedgekit import pipeline as pl
+    from hedgekit.config import load_config
+    for name in ("states", "assets"):
+        shutil.copy(DEMO / f"{name}.csv", tmp_path / f"{name}.csv")
+    if "factors" in files:
+        factors = pl.run_all(load_config(demo_copy(tmp_path / "d")), backtest=False).factor_set.factors.copy()
+        factors.index = factors.index.astype(str)
+        factors.to_csv(tmp_path / "factors.csv", index_label="date")
+    cfg = tmp_path / "min.toml"
+    cfg.write_text("[data]\n" + "".join(f'{f} = "{f}.csv"\n' for f in files))
+    assert main([command, str(cfg), "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out.get("sample", {}).get("periods", 0) > 100
