@@ -122,7 +122,6 @@ CASES = {
                          ["larkspur.toml", "must come first"]),
     "state gap": (lambda d, c: _set_cell(d / "states.csv", 100, 3, ""), ["states.csv", "date 1994-02", "column 'term'"]),
     "impossible day": (lambda d, c: _set_cell(d / "assets.csv", 10, 0, "1986-02-31"), ["assets.csv", "row 10", "1986-02-31"]),
-    "missing nav": (lambda d, c: _set_config(c, "nav = 250_000_000", ""), ["larkspur.toml", "nav is required"]),
     "lags out of range": (lambda d, c: _set_config(c, "lags = 1", "lags = 40"), ["larkspur.toml", "[states] lags = 40"]),
     "duplicate state": (lambda d, c: _set_config(c, '"def", "rf"]', '"def", "def"]'), ["larkspur.toml", "twice"]),
     "duplicate current position": (lambda d, c: (_set_config(c, "[data]\n", '[data]\ncurrent_positions = "cur.csv"\n'),
@@ -266,3 +265,14 @@ def test_bad_as_of(tmp_path, as_of, needle):
     data = load_dataset(load_config(demo_copy(tmp_path)))
     with pytest.raises(InputError, match=needle):
         data.as_of(as_of)
+
+
+def test_missing_nav_is_named_by_the_stage_that_needs_it(tmp_path, capsys):
+    """Without [portfolio] nav, validate passes but the hedge exits 2 naming the key and the fix."""
+    cfg = demo_copy(tmp_path)
+    _set_config(cfg, "nav = 250_000_000", "")
+    assert main(["validate", str(cfg)]) == 0
+    capsys.readouterr()
+    assert main(["hedge", str(cfg)]) == 2
+    err = capsys.readouterr().err
+    assert "nav is required for the hedge" in err and "Fix:" in err and "Traceback" not in err

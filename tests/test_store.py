@@ -10,8 +10,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from hedgekit.present import plots, report
 from hedgekit.errors import InputError
+from hedgekit.present import plots, report
 from hedgekit.store import RunStore, fingerprint
 
 FACTORS = ["mkt", "dy", "term", "def", "rf"]

@@ -180,8 +180,9 @@ def show_inputs(con: Console, config, data) -> None:
     """The input files as read (the validate command): an echo of the inputs, no estimate."""
     s = data.summary()
     plain = _plain(con)
-    con.print(f"{config['portfolio']['name']}  (NAV {config['portfolio']['nav']:,.0f} "
-              f"{config['portfolio']['currency']}, {s['frequency']})")
+    nav = config['portfolio']['nav']
+    nav_text = f"NAV {nav:,.0f} {config['portfolio']['currency']}" if nav is not None else "NAV not set"
+    con.print(f"{config['portfolio']['name']}  ({nav_text}, {s['frequency']})")
     rows = []
     for key in ("states", "assets", "instruments", "factors"):
         if key in s:
