@@ -255,6 +255,12 @@ def _whole_job(args, config_path: Path, *, earlier: bool = False):
     # A run re-created --as-of an earlier period gets its own report name: the current one stays.
     name = f"report_{run.meta['sample_end']}" if as_of else "report"
     payload, code, report_paths = finish_run(config, run, store=storing, name=name)
+    cuts = payload.get("dropped") or []
+    for cut in cuts[:10]:
+        _note(f"unused: {cut['file']}{'' if cut.get('column') is None else ' ' + str(cut['column'])} "
+              f"{cut['first']} to {cut['last']} ({cut['periods']} periods): {cut['reason']}")
+    if len(cuts) > 10:
+        _note(f"unused: {len(cuts) - 10} more stretches (see 'dropped' in --json)")
     _write_tables(args, _run_tables(run))
     if not args.json:
         con = _console(args)

@@ -73,10 +73,12 @@ class RunResult:
 
     def to_dict(self) -> dict[str, Any]:
         stages = self.stage_dicts()
+        used = samples(stages)
         return {
             "meta": self.meta,
             **stages,
-            "samples": samples(stages),
+            "samples": used,
+            "dropped": dropped(self.data, used),
             "warnings": list(self.warnings),
             "cautions": list(CAUTIONS),
         }
@@ -90,6 +92,17 @@ def samples(stages: dict[str, dict | None]) -> dict[str, dict]:
         if isinstance(sample, dict) and "first" in sample:
             out[name] = {k: sample.get(k) for k in ("first", "last", "periods")}
     return out
+
+
+def dropped(data: Any, used: dict[str, dict]) -> list[dict]:
+    """Every stretch of an input no stage used: gaps inside a series, rows outside all stage samples."""
+    if not hasattr(data, "dropped"):
+        return []
+    firsts = [v["first"] for v in used.values() if v.get("first")]
+    lasts = [v["last"] for v in used.values() if v.get("last")]
+    if not firsts:
+        return data.dropped()
+    return data.dropped(min(firsts), max(lasts))
 
 
 def run_meta(config: Config, data: Any, fs: Any) -> dict[str, Any]:

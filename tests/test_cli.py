@@ -218,3 +218,27 @@ def test_stage_commands_on_minimal_configs(tmp_path, capsys, command, files):
     assert main([command, str(cfg), "--json"]) == 0
     out = json.loads(capsys.readouterr().out)
     assert out.get("sample", {}).get("periods", 0) > 100
+
+
+def test_one_confidence_level_everywhere_from_the_config(tmp_path, capsys):
+    """[intervals] confidence = 0.80: the JSON, the terminal and the report HTML all carry 80 %
+    intervals and no 95 % label; the JSON interval is estimate +/- z(0.80) se (z = 1.2816, textbook)."""
+    import re
+    cfg = demo_copy(tmp_path)
+    cfg.write_text(cfg.read_text() + "\n[intervals]\nconfidence = 0.80\n")
+    assert main(["run", str(cfg), "--json", "--no-store"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["meta"]["level_label"] == "80 %"
+    for stage in ("exposures", "premia", "hedge", "stress", "backtest"):
+        assert out[stage]["confidence"] == 0.80, stage
+    h = out["hedge"]
+    lo, hi = h["exposure_before_interval"]["rf"]
+    assert abs((hi - lo) / 2 - 1.2815515655446004 * h["exposure_before_se"]["rf"]) < 1e-12
+    assert set(out["samples"]) >= {"states", "exposures", "premia", "hedge", "backtest"}
+    assert isinstance(out["dropped"], list)
+    env = dict(os.environ, NO_COLOR="1", COLUMNS="160")
+    proc = subprocess.run([sys.executable, "-m", "hedgekit.cli", "run", str(cfg), "--no-store", "--no-backtest"],
+                          capture_output=True, text=True, env=env)
+    html = (cfg.parent / "hedgekit_output" / "report.html").read_text(encoding="utf-8")
+    for text in (proc.stdout, html):
+        assert "80 %" in text and not re.search(r"(?<![\d.])95 ?%", text)
