@@ -150,10 +150,7 @@ class Config:
     sections: Mapping[str, Mapping[str, Any]] = field(default_factory=dict)
 
     def __getitem__(self, section: str) -> Mapping[str, Any]:
-        values = self.sections[section]
-        moved = {old: self.sections[new_s][new_k] for (s, old), (new_s, new_k) in MOVED.items()
-                 if s == section and old not in values}
-        return MappingProxyType({**values, **moved}) if moved else values
+        return self.sections[section]
 
     def data_path(self, key: str) -> Path | None:
         """The path of a [data] file key, or None when unset (only ``DATA_FILES`` are paths)."""

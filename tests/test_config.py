@@ -95,13 +95,12 @@ def test_missing_config_file(tmp_path: Path):
 
 
 def test_one_confidence_level_and_min_periods(tmp_path: Path):
-    """[intervals] confidence is the one level; the old places are read only through the
-    transitional view pipeline.py still uses (common practice: one source of truth)."""
+    """[intervals] confidence is the one level; the old places are not readable at all
+    (common practice: one source of truth)."""
     cfg = parse_config(MINIMAL + "[intervals]\nconfidence = 0.8\n[backtest]\nmin_periods = 60\n",
                        path=tmp_path / "c.toml", base=tmp_path)
     assert cfg["intervals"]["confidence"] == 0.8
-    assert cfg["hedge"]["confidence"] == 0.8
-    assert cfg["backtest"]["min_months"] == 60
+    assert "confidence" not in cfg["hedge"] and "min_months" not in cfg["backtest"]  # no read aliases
     assert "confidence" not in cfg.to_dict()["hedge"]
     assert cfg.to_dict()["intervals"] == {"confidence": 0.8}
 
