@@ -136,24 +136,10 @@ def run_exposures(config: Config, data: Dataset, fs: FactorSet):
 
 
 def surprise_impacts(exposures, fs: FactorSet, nav: float, *, size: float = 0.01) -> pd.DataFrame:
-    """The book's return and P&L for a natural-unit surprise in each state variable.
-
-    A surprise of ``size`` (0.01: +100 bp in a spread or rate, +1 point of dividend yield,
-    +1 % market return) mapped to orthogonal shocks ``M s`` (methods.md section 1), in the
-    isolated reading and with typical co-moves; impact = b' M s.
-    """
-    from .states import surprise_to_shocks
-    rows = []
-    book = exposures.book.reindex(fs.factors.columns).fillna(0.0)
-    for var in fs.transform.index:
-        row = {"variable": var, "surprise": size}
-        for reading in ("isolated", "comove"):
-            shocks = surprise_to_shocks(fs.transform, fs.sigma_u, {var: size}, reading=reading)
-            r = float(book.to_numpy() @ shocks.reindex(book.index).fillna(0.0).to_numpy())
-            row[f"{reading}_return"] = r
-            row[f"{reading}_pnl"] = r * nav
-        rows.append(row)
-    return pd.DataFrame(rows).set_index("variable")
+    """The book's return and P&L for a natural-unit surprise in each state variable (computed by
+    :func:`hedgekit.exposures.surprise_impacts`, the one implementation)."""
+    from .exposures import surprise_impacts as impacts
+    return impacts(exposures.book, fs.transform, fs.sigma_u, nav, size=size)
 
 
 # --------------------------------------------------------------------------- premia
